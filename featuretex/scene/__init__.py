@@ -1,0 +1,1 @@
+"""Scene input: manifest, cameras, mesh, photos."""
