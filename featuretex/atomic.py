@@ -1,0 +1,46 @@
+"""Atomic file writes: write to a temporary file in the same folder, then rename over the target."""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any, Iterator
+
+
+@contextmanager
+def atomic_path(target: str | Path, suffix: str | None = None) -> Iterator[Path]:
+    """Yield a temporary path beside `target`; on success it is renamed onto `target`.
+
+    The temporary name keeps the target's extension (writers pick formats by extension).
+    A failure or a kill leaves the old target (or nothing) in place, never half a file.
+    """
+    target = Path(target)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=suffix or "".join(target.suffixes),
+                               dir=target.parent)
+    os.close(fd)
+    tmp_path = Path(tmp)
+    try:
+        yield tmp_path
+        with open(tmp_path, "rb+") as f:
+            os.fsync(f.fileno())
+        os.replace(tmp_path, target)
+    finally:
+        if tmp_path.exists():
+            tmp_path.unlink()
+
+
+def write_bytes(target: str | Path, data: bytes) -> None:
+    with atomic_path(target) as tmp:
+        tmp.write_bytes(data)
+
+
+def write_text(target: str | Path, text: str) -> None:
+    write_bytes(target, text.encode("utf-8"))
+
+
+def write_json(target: str | Path, obj: Any) -> None:
+    write_text(target, json.dumps(obj, indent=2, sort_keys=False, allow_nan=False) + "\n")

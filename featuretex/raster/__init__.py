@@ -1,0 +1,1 @@
+"""G-buffers: per-view screen-space buffers and the texture-space (UV) buffer."""

@@ -1,0 +1,36 @@
+"""On-disk G-buffer cache keyed by mesh + camera content; entries are memory-mapped on load."""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import numpy as np
+
+from featuretex.atomic import atomic_path
+from featuretex.raster.gbuffer import GBUFFER_DTYPE, GBuffer
+from featuretex.scene.manifest import View
+from featuretex.scene.mesh import SceneMesh
+
+CACHE_VERSION = "gbuffer-v1"
+
+
+def cache_key(backend: str, mesh: SceneMesh, view: View) -> str:
+    h = hashlib.sha256()
+    for part in (CACHE_VERSION, backend, mesh.content_key(), view.camera.content_key()):
+        h.update(part.encode())
+    h.update(np.ascontiguousarray(view.world_to_camera, dtype=np.float64).tobytes())
+    return h.hexdigest()[:24]
+
+
+def load_or_render(cache_dir: Path, backend, mesh: SceneMesh, view: View) -> tuple[GBuffer, bool]:
+    """Return (G-buffer, was_cached). The buffer is a read-only memory map of the cache file."""
+    path = Path(cache_dir) / f"{cache_key(backend.name, mesh, view)}.npy"
+    cached = path.is_file()
+    if not cached:
+        data = backend.render(view)
+        assert data.dtype == GBUFFER_DTYPE
+        with atomic_path(path) as tmp:
+            np.save(tmp, data)
+    arr = np.load(path, mmap_mode="r")
+    return GBuffer(view=view.name, data=arr), cached
