@@ -1,0 +1,23 @@
+"""The exporter plugin protocol (entry-point group `featuretex.exporters`)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Protocol, runtime_checkable
+
+from featuretex.scene.mesh import SceneMesh
+
+
+@runtime_checkable
+class Exporter(Protocol):
+    """Writes the textured mesh into the run directory in one file format.
+
+    `texture_png` is the baked sRGB texture already written (normally `out_dir/texture.png`);
+    `unlit` asks for a material that shows the texture without scene lighting. Returns every
+    file written. Writes are atomic (featuretex.atomic).
+    """
+
+    name: str
+
+    def export(self, out_dir: Path, mesh: SceneMesh, texture_png: Path, *, unlit: bool) -> list[Path]:
+        ...
