@@ -1,0 +1,51 @@
+"""`featuretex scene=PATH out=DIR [overrides...]`: compose the config with Hydra and run the stages."""
+
+from __future__ import annotations
+
+import logging
+import os
+import sys
+from pathlib import Path
+
+os.environ.setdefault("PYOPENGL_PLATFORM", "egl")  # headless OpenGL for previews (pyrender)
+
+import hydra
+from hydra.core.hydra_config import HydraConfig
+from omegaconf import DictConfig, OmegaConf
+
+from featuretex.config import FeaturetexConfig, register
+from featuretex.errors import InputError
+
+log = logging.getLogger("featuretex")
+register()
+
+
+def _to_config(cfg: DictConfig) -> FeaturetexConfig:
+    return OmegaConf.to_object(cfg)  # type: ignore[return-value]
+
+
+@hydra.main(version_base="1.3", config_path="conf", config_name="featuretex")
+def _hydra_main(cfg: DictConfig) -> dict:
+    from featuretex.pipeline import run_pipeline
+
+    conf = _to_config(cfg)
+    out = Path(HydraConfig.get().runtime.output_dir)
+    try:
+        summary = run_pipeline(conf, out)
+    except InputError as e:
+        print(f"featuretex: {e}", file=sys.stderr)
+        sys.exit(InputError.exit_code)
+    log.info("done: %s", out)
+    return summary
+
+
+def main() -> None:
+    try:
+        _hydra_main()
+    except InputError as e:  # raised before the job starts (config validation)
+        print(f"featuretex: {e}", file=sys.stderr)
+        sys.exit(InputError.exit_code)
+
+
+if __name__ == "__main__":
+    main()
