@@ -1,0 +1,45 @@
+"""Every knob of the learned fit, with defaults tuned for the demo budget (~2 minutes on 2 cores).
+
+The lead mounts this dataclass as the Hydra group `fit` (`fit.steps=N`, `fit.decoder=texel`...).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass
+class FitConfig:
+    # schedule
+    steps: int = 800                 # optimisation steps (the cap; a plateau may stop earlier)
+    warmup: int = 20                 # steps of linear learning-rate warm-up
+    final_lr_frac: float = 0.1       # cosine decay down to this fraction of each learning rate
+    lr: float = 5e-3                 # feature texture (linear-light units per step)
+    lr_decoder: float = 2e-3         # head and screen-space decoder
+    lr_colour: float = 2e-3          # per-view colour affine
+    lr_align: float = 0.05           # per-view alignment fields (pixels per step)
+    # model
+    channels: int = 8                # feature channels per texel (0..2 start as the baseline colour)
+    texture_size: int = 0            # texels per side; 0 = the baseline's size (photo footprint)
+    decoder: str = "texel-screen"    # decoder plugin name ("texel" = bakeable head only)
+    hidden: int = 24                 # screen-space decoder width
+    layers: int = 2                  # 3x3 conv layers of the screen-space decoder
+    residual_bound: float = 0.25     # |screen-space residual| < this, linear light
+    align_cell_px: float = 40.0      # alignment grid spacing, pixels (480 x 640 -> 13 x 17 nodes)
+    # sampling
+    crop: int = 128                  # square crop edge, pixels
+    batch: int = 4                   # crops per step (from different views)
+    edge_erode_px: int = 2           # loss mask = coverage ∩ photo mask eroded by this
+    # loss and regularisation
+    w_l1: float = 0.8                # L1 on sRGB-encoded values
+    w_ssim: float = 0.2              # 1 - SSIM (Gaussian window, sigma 1.5)
+    w_colour: float = 1e-2           # colour affine towards the identity
+    w_align_mag: float = 1e-4        # alignment magnitude, per squared pixel
+    w_align_smooth: float = 1e-2     # alignment roughness between grid nodes, per squared pixel
+    # loop
+    eval_every: int = 100            # held-out PSNR / SSIM every N steps
+    checkpoint_every: int = 100      # checkpoint every N steps (and on interruption)
+    plateau: int = 0                 # stop after this many evals without training-loss gain (0 = never)
+    plateau_tol: float = 1e-3        # relative loss gain that counts as progress
+    threads: int = 0                 # torch threads; 0 = all cores (fixed per run for determinism)
+    reference_view: str = ""         # view held at identity colour; "" = first fitted view

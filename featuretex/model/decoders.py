@@ -1,0 +1,107 @@
+"""Decoders (plugins of kind "decoders"): how sampled features become a linear-light colour.
+
+Every decoder has the same per-texel head: a *linear* map from the C texture channels to RGB.
+Texture filtering (bilinear, trilinear) is linear too, so applying the head to filtered features
+in screen space gives exactly the same colour as filtering the head's RGB texture: the head is
+bakeable exactly, at every level of detail. (A non-linear head would commute with neither.)
+
+"texel-screen" adds a small convolutional network in screen space that sees the sampled
+features, the head's colour, and the view direction and normal in camera space, and outputs a
+bounded residual for what one colour per texel cannot hold (shine that moves with the view,
+sub-pixel misregistration). Its last layer starts at zero, so the first render is the head's.
+"""
+
+from __future__ import annotations
+
+import torch
+from torch import nn
+
+GEO_CHANNELS = 6  # view direction (3) + normal (3), unit vectors in camera axes
+
+
+class TexelHead(nn.Module):
+    """colour = W f + b per texel; starts as the identity on channels 0..2."""
+
+    def __init__(self, channels: int):
+        super().__init__()
+        w = torch.zeros(3, channels)
+        w[:, :3] = torch.eye(3)
+        self.weight = nn.Parameter(w)                     # (3, C)
+        self.bias = nn.Parameter(torch.zeros(3))          # (3,) linear light
+
+    def forward(self, feat: torch.Tensor) -> torch.Tensor:
+        """(..., C) features -> (..., 3) linear colour."""
+        return feat @ self.weight.t() + self.bias
+
+    def flops_per_sample(self) -> int:
+        return 2 * self.weight.numel()
+
+
+class ScreenDecoder(nn.Module):
+    """3x3 conv stack -> bound * tanh: a residual in linear light, |residual| < bound."""
+
+    def __init__(self, in_channels: int, hidden: int, layers: int, bound: float):
+        super().__init__()
+        mods: list[nn.Module] = []
+        c = in_channels
+        for _ in range(layers):
+            mods += [nn.Conv2d(c, hidden, 3, padding=1), nn.ReLU(inplace=True)]
+            c = hidden
+        self.body = nn.Sequential(*mods)
+        self.out = nn.Conv2d(c, 3, 1)
+        nn.init.zeros_(self.out.weight)
+        nn.init.zeros_(self.out.bias)
+        self.bound = float(bound)
+        self.halo = layers                                # pixels of context each side
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        """(B, in, h, w) -> (B, 3, h, w)."""
+        return self.bound * torch.tanh(self.out(self.body(x)))
+
+    def flops_per_pixel(self) -> int:
+        """Multiply-adds x 2 of every convolution (activations and tanh not counted)."""
+        return sum(2 * m.weight.numel() for m in self.modules() if isinstance(m, nn.Conv2d))
+
+
+class TexelDecoder(nn.Module):
+    """The bakeable per-texel head alone: render == sampling the baked RGB texture."""
+
+    name = "texel"
+
+    def __init__(self, channels: int, *, hidden: int = 24, layers: int = 2, bound: float = 0.25):
+        super().__init__()
+        self.head = TexelHead(channels)
+        self.screen: ScreenDecoder | None = None
+
+    @property
+    def halo(self) -> int:
+        return 0 if self.screen is None else self.screen.halo
+
+    def residual(self, feat: torch.Tensor, colour: torch.Tensor, geo: torch.Tensor) -> torch.Tensor | None:
+        """(B, 3, h, w) screen-space residual from feat (B, C, h, w), colour (B, 3, h, w) linear
+        and geo (B, 6, h, w); None when the decoder has no screen-space part."""
+        return None
+
+    def flops_per_pixel(self) -> dict[str, int]:
+        out = {"head": self.head.flops_per_sample()}
+        if self.screen is not None:
+            out["screen"] = self.screen.flops_per_pixel()
+        return out
+
+
+class TexelScreenDecoder(TexelDecoder):
+    """Head plus the screen-space residual network (the default)."""
+
+    name = "texel-screen"
+
+    def __init__(self, channels: int, *, hidden: int = 24, layers: int = 2, bound: float = 0.25):
+        super().__init__(channels, hidden=hidden, layers=layers, bound=bound)
+        self.screen = ScreenDecoder(channels + 3 + GEO_CHANNELS, hidden, layers, bound)
+
+    def residual(self, feat: torch.Tensor, colour: torch.Tensor, geo: torch.Tensor) -> torch.Tensor | None:
+        assert self.screen is not None
+        return self.screen(torch.cat([feat, colour, geo], dim=1))
+
+
+def parameter_count(module: nn.Module) -> int:
+    return sum(p.numel() for p in module.parameters())

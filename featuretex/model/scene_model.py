@@ -1,0 +1,83 @@
+"""The fitted model of one scan: feature texture + decoder (+ per-view corrections of fitted views)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import torch
+from torch import nn
+
+from featuretex import plugins
+from featuretex.model.corrections import ViewCorrections
+from featuretex.model.decoders import TexelDecoder
+from featuretex.model.texture import FeatureTexture
+
+
+@dataclass
+class PixelBatch:
+    """Screen-space inputs of B equally sized image tiles."""
+
+    cover: torch.Tensor     # (B, h, w) bool: a surface is seen at the pixel centre
+    uv: torch.Tensor        # (N, 2) float32 uv (v up) of the covered pixels, row-major over cover
+    rho: torch.Tensor       # (N,) float32 footprint, uv units per pixel
+    geo: torch.Tensor       # (B, 6, h, w) float32 view direction + normal, camera axes (0 off the mesh)
+
+
+@dataclass
+class Render:
+    colour: torch.Tensor            # (B, 3, h, w) linear: the bakeable per-texel head, 0 off the mesh
+    residual: torch.Tensor | None   # (B, 3, h, w) linear screen-space residual, or None
+
+    @property
+    def total(self) -> torch.Tensor:
+        return self.colour if self.residual is None else self.colour + self.residual
+
+
+class SceneModel(nn.Module):
+    def __init__(self, size: int, channels: int, decoder: str, decoder_kwargs: dict[str, Any],
+                 corrections: ViewCorrections | None = None):
+        super().__init__()
+        self.texture = FeatureTexture(size, channels)
+        cls = plugins.load("decoders", decoder)
+        self.decoder: TexelDecoder = cls(channels, **decoder_kwargs)
+        self.decoder_name = decoder
+        self.decoder_kwargs = dict(decoder_kwargs)
+        self.corrections = corrections
+
+    def forward(self, batch: PixelBatch) -> Render:
+        B, h, w = batch.cover.shape
+        C = self.texture.channels
+        feat = self.texture.sample(batch.uv, batch.rho)                 # (N, C)
+        colour = self.decoder.head(feat)                                # (N, 3)
+        flat = torch.nonzero(batch.cover.reshape(-1), as_tuple=True)[0]
+        dense = feat.new_zeros(B * h * w, C + 3).index_copy(0, flat, torch.cat([feat, colour], 1))
+        img = dense.reshape(B, h, w, C + 3).permute(0, 3, 1, 2)
+        colour_img = img[:, C:]
+        res = self.decoder.residual(img[:, :C], colour_img, batch.geo) if self.decoder.screen is not None else None
+        if res is not None:
+            res = res * batch.cover[:, None].to(res.dtype)
+        return Render(colour=colour_img.contiguous(), residual=res)
+
+    def meta(self) -> dict[str, Any]:
+        """Plain-typed description (loadable with torch.load(weights_only=True))."""
+        c = self.corrections
+        return {"size": self.texture.size, "channels": self.texture.channels, "decoder": self.decoder_name,
+                "decoder_kwargs": self.decoder_kwargs,
+                "views": list(c.names) if c is not None else [],
+                "grid_hw": list(c.align.shape[2:]) if c is not None else [],
+                "image_sizes": c.sizes.tolist() if c is not None else [],
+                "reference": c.reference if c is not None else 0}
+
+    @classmethod
+    def from_meta(cls, meta: dict[str, Any]) -> "SceneModel":
+        corr = None
+        if meta["views"]:
+            corr = ViewCorrections(meta["views"], [tuple(s) for s in meta["image_sizes"]],
+                                   tuple(meta["grid_hw"]), meta["reference"])
+        return cls(meta["size"], meta["channels"], meta["decoder"], meta["decoder_kwargs"], corr)
+
+    def view_index(self, name: str) -> int | None:
+        if self.corrections is None or name not in self.corrections.names:
+            return None
+        return self.corrections.names.index(name)
