@@ -18,7 +18,6 @@ no KHR_materials_unlit and re-encodes the texture, so afterwards this module:
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 from typing import Any
 
