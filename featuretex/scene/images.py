@@ -32,7 +32,8 @@ def _to_unit_float(im: Image.Image) -> np.ndarray:
         return np.clip(np.asarray(im, dtype=np.float32), 0, 1)[..., None]
     if im.mode in ("P", "PA", "CMYK", "YCbCr", "LAB", "HSV", "1"):
         im = im.convert("RGBA" if "transparency" in im.info or im.mode == "PA" else "RGB")
-    return np.asarray(im, dtype=np.float32) / 255.0
+    a = np.asarray(im, dtype=np.float32) / 255.0
+    return a[..., None] if a.ndim == 2 else a
 
 
 def load_photo(path: Path, manifest_file: str, view: str, size: tuple[int, int]) -> np.ndarray:
