@@ -32,6 +32,8 @@ def score_method(scene: Scene, gbuffers: dict[str, GBuffer], renders: dict[str, 
     for view in scene.manifest.heldout:
         gb = gbuffers[view.name]
         mask = score_mask(scene, view, gb)
+        if not mask.any():  # the view does not show the object: nothing to score
+            continue
         photo = scene.photo(view)
         s = metrics.score_view(renders[view.name], photo, mask)
         per_view[view.name] = s
