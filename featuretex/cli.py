@@ -17,6 +17,7 @@ from featuretex.config import FeaturetexConfig, register
 from featuretex.errors import InputError
 
 log = logging.getLogger("featuretex")
+OUTPUT_ERROR_EXIT = 3
 register()
 
 
@@ -35,6 +36,10 @@ def _hydra_main(cfg: DictConfig) -> dict:
     except InputError as e:
         print(f"featuretex: {e}", file=sys.stderr)
         sys.exit(InputError.exit_code)
+    except OSError as e:  # disk full, read-only or vanished output folder: outputs stay whole (atomic)
+        where = f" '{e.filename}'" if getattr(e, "filename", None) else ""
+        print(f"featuretex: cannot write the output{where} in {out}: {e.strerror or e}", file=sys.stderr)
+        sys.exit(OUTPUT_ERROR_EXIT)
     log.info("done: %s", out)
     return summary
 
