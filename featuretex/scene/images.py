@@ -1,4 +1,18 @@
-"""Photo and mask decoding: 8/16-bit PNG, JPEG (EXIF orientation honoured), TIFF -> linear light."""
+"""Photo and mask decoding: 8/16-bit PNG, JPEG (EXIF orientation honoured), TIFF -> linear light.
+
+What is accepted, and how (every other kind of file is refused with an InputError):
+
+| file                          | photo                       | mask                         |
+| ----------------------------- | --------------------------- | ---------------------------- |
+| 8-bit RGB, grey, palette, 1-bit | decoded (grey replicated) | mean of the channels >= 0.5  |
+| 16-bit RGB / grey PNG or TIFF | decoded at full depth (OpenCV; Pillow keeps only 8 bits of 16-bit RGB) | as above |
+| with alpha (RGBA, LA, palette transparency) | alpha ignored | alpha >= 0.5 is the mask   |
+| EXIF orientation 2..8         | turned upright first        | turned upright first         |
+| CMYK, Lab, HSV, 32-bit int / float | refused: not an sRGB-encoded photo               ||
+
+Pixel values are read as sRGB-encoded (DESIGN §2); photos are decoded to linear light with the
+IEC 61966-2-1 curve.
+"""
 
 from __future__ import annotations
 
@@ -10,51 +24,142 @@ from PIL import Image, ImageOps, UnidentifiedImageError
 from featuretex.errors import input_error
 from featuretex.scene.colour import srgb_to_linear
 
+# Pillow modes of 8-bit data (after opening) and the mode each is converted to
+_EIGHT_BIT = {"L": "L", "LA": "LA", "RGB": "RGB", "RGBA": "RGBA", "1": "L", "P": None, "PA": "RGBA",
+              "La": "LA", "RGBa": "RGBA"}
+_SIXTEEN_BIT_GREY = ("I;16", "I;16B", "I;16L", "I;16N")
+_REFUSED = {"CMYK": "CMYK ink separations carry no sRGB colour; export the photo as RGB",
+            "LAB": "Lab images are not sRGB-encoded; export the photo as RGB",
+            "HSV": "HSV images are not sRGB-encoded; export the photo as RGB",
+            "YCbCr": "raw YCbCr images are not supported; export the photo as RGB",
+            "I": "32-bit integer images are not sRGB-encoded photos; use 8 or 16 bits per channel",
+            "F": "floating-point images are not sRGB-encoded photos; use 8 or 16 bits per channel"}
+_PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+# EXIF orientation (tag 0x0112) -> transform that makes the stored pixels upright (EXIF 2.3 §4.6.4)
+_ORIENT = {
+    1: lambda a: a,
+    2: lambda a: a[:, ::-1],                          # mirrored left-right
+    3: lambda a: a[::-1, ::-1],                       # rotated 180
+    4: lambda a: a[::-1],                             # mirrored top-bottom
+    5: lambda a: a.swapaxes(0, 1),                    # transposed
+    6: lambda a: np.rot90(a, -1),                     # needs 90 clockwise
+    7: lambda a: a.swapaxes(0, 1)[::-1, ::-1],        # transversed
+    8: lambda a: np.rot90(a, 1),                      # needs 90 counter-clockwise
+}
+SWAPS_AXES = (5, 6, 7, 8)  # orientations whose upright image has width and height exchanged
 
-def _open(path: Path, manifest_file: str, view: str, fld: str) -> Image.Image:
+
+def _fail(manifest_file: str, view: str, fld: str, path: Path, what: str, hint: str | None = None):
+    return input_error(manifest_file, f"'{path.name}': {what}", view=view, field=fld, hint=hint)
+
+
+def _orientation(im: Image.Image) -> int:
+    try:
+        o = int(im.getexif().get(0x0112, 1))
+    except Exception:  # a corrupt EXIF block is not worth refusing the photo over: take it as upright
+        return 1
+    return o if o in _ORIENT else 1
+
+
+def _bits_per_sample(im: Image.Image, path: Path) -> int:
+    """Stored bits per channel, read from the file itself (Pillow reports 16-bit RGB as 8-bit 'RGB')."""
+    if im.format == "PNG":
+        with open(path, "rb") as f:
+            head = f.read(26)
+        # PNG spec §11.2.2: IHDR is the first chunk; its bit depth byte sits at file offset 24
+        if head[:8] == _PNG_SIGNATURE and head[12:16] == b"IHDR":
+            return int(head[24])
+    if im.format == "TIFF":
+        bps = getattr(im, "tag_v2", {}).get(258, 8)   # TIFF 6.0 tag 258 BitsPerSample
+        return int(max(bps) if isinstance(bps, (tuple, list)) else bps)
+    return 16 if im.mode in _SIXTEEN_BIT_GREY else 8
+
+
+def _decode_wide(path: Path, manifest_file: str, view: str, fld: str) -> np.ndarray:
+    """16-bit PNG / TIFF through OpenCV at full depth -> (H, W, C) float32 in [0, 1], RGB(A) order."""
+    import cv2
+
+    a = cv2.imdecode(np.fromfile(path, dtype=np.uint8), cv2.IMREAD_UNCHANGED)
+    if a is None or a.dtype != np.uint16:
+        raise _fail(manifest_file, view, fld, path, "cannot decode this 16-bit image (damaged or truncated?)")
+    if a.ndim == 2:
+        a = a[..., None]
+    elif a.shape[2] == 3:
+        a = a[..., ::-1]                        # OpenCV stores BGR
+    elif a.shape[2] == 4:
+        a = a[..., [2, 1, 0, 3]]                # BGRA -> RGBA
+    return a.astype(np.float32) / 65535.0
+
+
+def decode_image(path: Path, manifest_file: str, view: str, fld: str) -> np.ndarray:
+    """Decode a photo or mask file upright -> (H, W, C) float32 in [0, 1], C in (1, 2, 3, 4).
+
+    C = 1 grey, 2 grey + alpha, 3 RGB, 4 RGBA. Raises InputError naming file, view and field.
+    """
     try:
         im = Image.open(path)
-        im.load()
-    except (UnidentifiedImageError, OSError, ValueError) as e:
-        raise input_error(manifest_file, f"cannot decode '{path.name}': {e}", view=view, field=fld) from None
-    return ImageOps.exif_transpose(im)
-
-
-def _to_unit_float(im: Image.Image) -> np.ndarray:
-    """Any Pillow image -> (H, W, C) float32 in [0, 1], keeping 16-bit precision where present."""
-    if im.mode in ("I;16", "I;16B", "I;16L", "I;16N"):
-        return (np.asarray(im, dtype=np.uint16).astype(np.float32) / 65535.0)[..., None]
-    if im.mode == "I":
-        a = np.asarray(im, dtype=np.int64)
-        scale = 65535.0 if a.max(initial=0) > 255 else 255.0
-        return (np.clip(a, 0, scale).astype(np.float32) / scale)[..., None]
-    if im.mode == "F":
-        return np.clip(np.asarray(im, dtype=np.float32), 0, 1)[..., None]
-    if im.mode in ("P", "PA", "CMYK", "YCbCr", "LAB", "HSV", "1"):
-        im = im.convert("RGBA" if "transparency" in im.info or im.mode == "PA" else "RGB")
-    a = np.asarray(im, dtype=np.float32) / 255.0
+    except (UnidentifiedImageError, OSError, ValueError, Image.DecompressionBombError) as e:
+        raise _fail(manifest_file, view, fld, path, f"not an image file this tool can read ({e})",
+                    hint="use PNG, JPEG or TIFF") from None
+    with im:
+        if im.mode in _REFUSED:
+            raise _fail(manifest_file, view, fld, path, f"{im.mode} image refused", hint=_REFUSED[im.mode])
+        orient = _orientation(im)
+        wide = im.format in ("PNG", "TIFF") and _bits_per_sample(im, path) > 8
+        if not wide and im.mode not in _EIGHT_BIT and im.mode not in _SIXTEEN_BIT_GREY:
+            raise _fail(manifest_file, view, fld, path, f"unsupported pixel format {im.mode!r}",
+                        hint="save it as 8 or 16-bit RGB or grey PNG, JPEG or TIFF")
+        try:
+            im.load()  # also for 16-bit files: Pillow reports damage as an exception, libpng on stderr
+            if wide:
+                return np.ascontiguousarray(_ORIENT[orient](_decode_wide(path, manifest_file, view, fld)))
+            up = ImageOps.exif_transpose(im)
+            if up.mode in _SIXTEEN_BIT_GREY:
+                return (np.asarray(up, dtype=np.uint16).astype(np.float32) / 65535.0)[..., None]
+            target = _EIGHT_BIT[up.mode] or ("RGBA" if "transparency" in up.info else "RGB")
+            a = np.asarray(up.convert(target) if target != up.mode else up, dtype=np.float32) / 255.0
+        except (OSError, ValueError, SyntaxError, Image.DecompressionBombError) as e:
+            raise _fail(manifest_file, view, fld, path, f"cannot decode ({e})",
+                        hint="the file is damaged or truncated; copy it again from the camera") from None
     return a[..., None] if a.ndim == 2 else a
+
+
+def _check_size(a: np.ndarray, path: Path, manifest_file: str, view: str, fld: str,
+                size: tuple[int, int]) -> None:
+    if a.shape[1] != size[0] or a.shape[0] != size[1]:
+        raise _fail(manifest_file, view, fld, path, f"is {a.shape[1]}x{a.shape[0]} (upright) but the camera "
+                    f"says {size[0]}x{size[1]}", hint="fix the camera's width/height or use the original photo")
+
+
+def photo_from_array(a: np.ndarray) -> np.ndarray:
+    """(H, W, C) float32 sRGB-encoded in [0, 1] -> (H, W, 3) float32 linear light (alpha dropped)."""
+    if a.shape[2] in (1, 2):      # grey (+alpha): replicate
+        a = np.repeat(a[..., :1], 3, axis=2)
+    return srgb_to_linear(a[..., :3])
+
+
+def mask_from_array(a: np.ndarray) -> np.ndarray:
+    """(H, W, C) float32 in [0, 1] -> (H, W) bool; an alpha channel, when present, is the mask."""
+    if a.shape[2] in (2, 4):
+        return a[..., -1] >= 0.5
+    return a.mean(axis=2) >= 0.5
 
 
 def load_photo(path: Path, manifest_file: str, view: str, size: tuple[int, int]) -> np.ndarray:
     """Decode a photo to (H, W, 3) float32 linear light. `size` = (width, height) expected."""
-    a = _to_unit_float(_open(path, manifest_file, view, "image"))
-    if a.shape[1] != size[0] or a.shape[0] != size[1]:
-        raise input_error(manifest_file, f"'{path.name}' is {a.shape[1]}x{a.shape[0]}, camera says "
-                          f"{size[0]}x{size[1]}", view=view, field="image")
-    if a.shape[2] in (1, 2):      # grey (+alpha): replicate
-        a = np.repeat(a[..., :1], 3, axis=2)
-    return srgb_to_linear(a[..., :3])
+    a = decode_image(path, manifest_file, view, "image")
+    _check_size(a, path, manifest_file, view, "image", size)
+    return photo_from_array(a)
 
 
 def load_mask(path: Path | None, manifest_file: str, view: str, size: tuple[int, int]) -> np.ndarray | None:
     """Decode a mask to (H, W) bool, white (>= 0.5) = object. None when the view has none."""
     if path is None:
         return None
-    a = _to_unit_float(_open(path, manifest_file, view, "mask"))
-    if a.shape[1] != size[0] or a.shape[0] != size[1]:
-        raise input_error(manifest_file, f"mask '{path.name}' is {a.shape[1]}x{a.shape[0]}, camera says "
-                          f"{size[0]}x{size[1]}", view=view, field="mask")
-    if a.shape[2] in (2, 4):       # an alpha channel, when present, is the mask
-        return a[..., -1] >= 0.5
-    return a[..., :3].mean(axis=2) >= 0.5
+    a = decode_image(path, manifest_file, view, "mask")
+    _check_size(a, path, manifest_file, view, "mask", size)
+    m = mask_from_array(a)
+    if not m.any():
+        raise _fail(manifest_file, view, "mask", path, "the mask is empty (no white pixel = no object)",
+                    hint="white marks the object; remove the mask line to use the whole photo")
+    return m

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections import OrderedDict
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -9,16 +10,19 @@ from pathlib import Path
 import numpy as np
 
 from featuretex.errors import input_error
-from featuretex.scene.images import load_mask, load_photo
-from featuretex.scene.manifest import Manifest, View, check_image_sizes, read_manifest
+from featuretex.scene.images import SWAPS_AXES, load_mask, load_photo
+from featuretex.scene.manifest import Manifest, View, read_manifest
 from featuretex.scene.mesh import SceneMesh, load_mesh
+
+PHOTO_CACHE_BYTES = 1 << 30  # decoded photos kept in memory; older ones are decoded again when asked for
 
 
 @dataclass
 class Scene:
     manifest: Manifest
     mesh: SceneMesh
-    _photos: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+    photo_cache_bytes: int = PHOTO_CACHE_BYTES
+    _photos: OrderedDict[str, np.ndarray] = field(default_factory=OrderedDict, repr=False)
 
     @property
     def file(self) -> str:
@@ -35,11 +39,16 @@ class Scene:
         raise KeyError(name)
 
     def photo(self, view: View) -> np.ndarray:
-        """(H, W, 3) float32 linear-light photo (decoded once, then kept)."""
-        if view.name not in self._photos:
-            size = (view.camera.width, view.camera.height)
-            self._photos[view.name] = load_photo(view.image, self.file, view.name, size)
-        return self._photos[view.name]
+        """(H, W, 3) float32 linear-light photo; the most recently used ones stay decoded in memory."""
+        if view.name in self._photos:
+            self._photos.move_to_end(view.name)
+            return self._photos[view.name]
+        size = (view.camera.width, view.camera.height)
+        a = load_photo(view.image, self.file, view.name, size)
+        self._photos[view.name] = a
+        while len(self._photos) > 1 and sum(p.nbytes for p in self._photos.values()) > self.photo_cache_bytes:
+            self._photos.popitem(last=False)
+        return a
 
     def photo_mask(self, view: View) -> np.ndarray | None:
         """(H, W) bool object mask from the mask file, or None when the view has none."""
@@ -51,12 +60,60 @@ class Scene:
 
 
 def load_scene(path: str | Path) -> Scene:
-    """Read, validate and load a scene (mesh decoded; photos on demand). Raises InputError."""
+    """Read, validate and load a scene (mesh decoded; photos on demand). Raises InputError.
+
+    Every photo and mask is decoded once here, so a damaged file stops the run before any work.
+    """
     man = read_manifest(path)
-    check_image_sizes(man)
+    photos = check_images(man)
     mesh = load_mesh(man.mesh, str(man.path))
     check_views_see_mesh(man, mesh)
-    return Scene(manifest=man, mesh=mesh)
+    scene = Scene(manifest=man, mesh=mesh)
+    for name, photo in photos.items():   # keep what was decoded anyway, within the cache budget
+        scene._photos[name] = photo
+    return scene
+
+
+def _header_size(p: Path, file: str, view: str, fld: str) -> tuple[int, int] | None:
+    """(width, height) of the upright image from its header alone, or None if Pillow cannot tell."""
+    from PIL import Image
+
+    try:
+        with Image.open(p) as im:
+            w, h = im.size
+            orient = im.getexif().get(0x0112, 1)
+    except Exception:  # decode_image reports what is wrong with the file
+        return None
+    return (h, w) if orient in SWAPS_AXES else (w, h)
+
+
+def check_images(man: Manifest, keep_bytes: int = PHOTO_CACHE_BYTES) -> dict[str, np.ndarray]:
+    """Every photo and mask decodes, is upright the camera's width x height, and a mask is not empty.
+
+    The header is read first, so an image far larger than its camera is refused before decoding.
+    Returns the first decoded photos ({view name: (H, W, 3) float32 linear}) up to `keep_bytes`.
+    """
+    file = str(man.path)
+    kept: dict[str, np.ndarray] = {}
+    total = 0
+    for v in man.views:
+        want = (v.camera.width, v.camera.height)
+        for fld, p in (("image", v.image), ("mask", v.mask)):
+            if p is None:
+                continue
+            size = _header_size(p, file, v.name, fld)
+            if size is not None and size != want:
+                raise input_error(file, f"'{p.name}' is {size[0]}x{size[1]} (upright) but camera "
+                                  f"'{v.camera.id}' is {want[0]}x{want[1]}", view=v.name, field=fld,
+                                  hint="fix the camera's width/height or use the original photo")
+            if fld == "image":
+                photo = load_photo(p, file, v.name, want)
+                if total + photo.nbytes <= keep_bytes:
+                    kept[v.name] = photo
+                    total += photo.nbytes
+            else:
+                load_mask(p, file, v.name, want)
+    return kept
 
 
 def check_views_see_mesh(man: Manifest, mesh: SceneMesh) -> None:
@@ -75,4 +132,5 @@ def check_views_see_mesh(man: Manifest, mesh: SceneMesh) -> None:
                   & (px[:, 1] > -0.5) & (px[:, 1] < v.camera.height - 0.5))
         if not inside.any():
             raise input_error(str(man.path), "no part of the mesh projects into this image (camera looks away)",
-                              view=v.name, field="world_to_camera")
+                              view=v.name, field="world_to_camera",
+                              hint="check the pose, and that the mesh and the poses use the same unit")

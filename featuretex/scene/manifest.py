@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 import yaml
 
-from featuretex.errors import InputError, input_error
+from featuretex.errors import input_error
 from featuretex.scene.camera import MODELS, Camera
 
 FORMAT = "featuretex-scene/1"
@@ -23,6 +23,9 @@ UNITS = {"meter": 1.0, "metre": 1.0, "m": 1.0, "centimeter": 0.01, "centimetre":
          "millimeter": 0.001, "millimetre": 0.001, "mm": 0.001, "inch": 0.0254, "in": 0.0254,
          "foot": 0.3048, "ft": 0.3048}
 ROTATION_TOL = 1e-4  # max |R^T R - I| entry, and |det R - 1|
+MAX_PIXELS_PER_SIDE = 1 << 16   # wider than any sensor; bounds memory before an image is read
+MAX_MANIFEST_BYTES = 64 << 20   # a scene.yaml larger than this is not a scene description
+DISTORTION_TOL_PX = 0.01        # undistort -> distort round trip at the image border, pixels
 
 
 @dataclass(frozen=True)
@@ -99,58 +102,95 @@ def _file_digest(p: Path) -> str:
     return h.hexdigest()
 
 
+def _short(value: Any, limit: int = 60) -> str:
+    """repr of a user value, cut to `limit` characters, so every message stays one readable line."""
+    r = repr(value)
+    return r if len(r) <= limit else r[: limit - 3] + "..."
+
+
 def _number(value: Any, file: str, *, view: str | None, fld: str, positive: bool = False) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise input_error(file, f"expected a number, got {value!r}", view=view, field=fld)
-    v = float(value)
+        raise input_error(file, f"expected a number, got {_short(value)}", view=view, field=fld)
+    try:
+        v = float(value)
+    except OverflowError:          # an integer beyond the float range
+        v = math.inf
     if not math.isfinite(v):
-        raise input_error(file, f"must be finite, got {value!r}", view=view, field=fld)
+        raise input_error(file, f"must be finite, got {_short(value)}", view=view, field=fld)
     if positive and v <= 0:
-        raise input_error(file, f"must be > 0, got {value!r}", view=view, field=fld)
+        raise input_error(file, f"must be > 0, got {_short(value)}", view=view, field=fld)
     return v
 
 
 def _integer(value: Any, file: str, *, view: str | None, fld: str) -> int:
-    if isinstance(value, bool) or not isinstance(value, int) or value <= 0:
-        raise input_error(file, f"expected a positive whole number, got {value!r}", view=view, field=fld)
+    if isinstance(value, bool) or not isinstance(value, int) or not 0 < value <= MAX_PIXELS_PER_SIDE:
+        raise input_error(file, f"expected a whole number of pixels in 1..{MAX_PIXELS_PER_SIDE}, "
+                          f"got {_short(value)}", view=view, field=fld)
     return int(value)
 
 
 def _resolve_path(root: Path, value: Any, file: str, *, view: str | None, fld: str) -> Path:
-    """A path relative to the scene folder; refuse absolute paths and paths that leave the folder."""
+    """A path relative to the scene folder; refuse absolute paths and paths that leave the folder.
+
+    Symbolic links are followed, so a link inside the folder that points outside is refused too.
+    """
     if not isinstance(value, str) or not value.strip():
-        raise input_error(file, f"expected a relative file path, got {value!r}", view=view, field=fld)
+        raise input_error(file, f"expected a relative file path, got {_short(value)}", view=view, field=fld)
+    if not value.isprintable():
+        raise input_error(file, f"path {_short(value)} contains control characters", view=view, field=fld)
     rel = Path(value)
     if rel.is_absolute():
-        raise input_error(file, f"absolute path '{value}' refused", view=view, field=fld,
+        raise input_error(file, f"absolute path {_short(value)} refused", view=view, field=fld,
                           hint="paths must be relative to the folder of scene.yaml")
-    p = (root / rel).resolve()
-    if not p.is_relative_to(root.resolve()):
-        raise input_error(file, f"path '{value}' leaves the scene folder; refused", view=view, field=fld,
-                          hint="keep every file inside the folder of scene.yaml")
-    if not p.is_file():
-        raise input_error(file, f"file '{value}' not found", view=view, field=fld)
+    try:
+        p = (root / rel).resolve()
+        inside = p.is_relative_to(root.resolve())
+        exists = p.is_file()
+    except (OSError, RuntimeError, ValueError) as e:   # name too long, symlink loop, ...
+        raise input_error(file, f"cannot use path {_short(value)}: {e}", view=view, field=fld) from None
+    if not inside:
+        raise input_error(file, f"path {_short(value)} leaves the scene folder; refused", view=view, field=fld,
+                          hint="copy the file into the folder of scene.yaml (symbolic links are followed)")
+    if not exists:
+        raise input_error(file, f"file {_short(value)} not found", view=view, field=fld,
+                          hint="paths are relative to the folder of scene.yaml")
     return p
 
 
+def _key_text(k: Any) -> str:
+    """A mapping key as it may appear in a one-line message."""
+    return k if isinstance(k, str) and k.isprintable() and len(k) <= 40 else _short(k, 40)
+
+
 def _unknown_keys(d: dict, allowed: set[str], file: str, *, view: str | None, where: str) -> None:
-    extra = sorted(str(k) for k in d if k not in allowed)
+    extra = sorted(_key_text(k) for k in d if not (isinstance(k, str) and k in allowed))
     if extra:
         raise input_error(file, f"unknown key(s) {', '.join(extra)} in {where}", view=view, field=extra[0],
                           hint=f"allowed: {', '.join(sorted(allowed))}")
 
 
+def _text_id(value: Any) -> str | None:
+    """A camera id or view name: printable text, or a whole number (YAML reads `0:` as an int)."""
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, str) and value and value.isprintable():
+        return value
+    return None
+
+
 def parse_camera(cid: str, d: Any, file: str) -> Camera:
     where = f"cameras.{cid}"
     if not isinstance(d, dict):
-        raise input_error(file, "expected a mapping of camera fields", field=where)
+        raise input_error(file, f"expected a mapping of camera fields, got {_short(d)}", field=where)
     _unknown_keys(d, CAMERA_KEYS, file, view=None, where=where)
     for k in ("model", "width", "height", "fx", "fy", "cx", "cy"):
         if k not in d:
             raise input_error(file, "missing", field=f"{where}.{k}")
     model = d["model"]
-    if model not in MODELS:
-        raise input_error(file, f"unknown camera model {model!r}", field=f"{where}.model",
+    if not isinstance(model, str) or model not in MODELS:
+        raise input_error(file, f"unknown camera model {_short(model)}", field=f"{where}.model",
                           hint=f"use one of {', '.join(MODELS)}")
     w = _integer(d["width"], file, view=None, fld=f"{where}.width")
     h = _integer(d["height"], file, view=None, fld=f"{where}.height")
@@ -159,131 +199,201 @@ def parse_camera(cid: str, d: Any, file: str) -> Camera:
     cx = _number(d["cx"], file, view=None, fld=f"{where}.cx")
     cy = _number(d["cy"], file, view=None, fld=f"{where}.cy")
     if not (-0.5 * w <= cx <= 1.5 * w and -0.5 * h <= cy <= 1.5 * h):
-        raise input_error(file, f"principal point ({cx}, {cy}) lies far outside the {w}x{h} image",
+        raise input_error(file, f"principal point ({cx:g}, {cy:g}) lies far outside the {w}x{h} image",
                           field=f"{where}.cx/cy", hint="cx, cy are in pixels; (0, 0) is the top-left pixel centre")
     dist = d.get("distortion", None)
     coeffs = (0.0, 0.0, 0.0, 0.0, 0.0)
     if dist is not None:
         if not isinstance(dist, list) or len(dist) not in (4, 5):
-            raise input_error(file, f"expected a list [k1, k2, p1, p2, k3] (OpenCV order), got {dist!r}",
+            raise input_error(file, f"expected a list [k1, k2, p1, p2, k3] (OpenCV order), got {_short(dist)}",
                               field=f"{where}.distortion")
         vals = [_number(c, file, view=None, fld=f"{where}.distortion[{i}]") for i, c in enumerate(dist)]
         coeffs = tuple(vals + [0.0] * (5 - len(vals)))  # type: ignore[assignment]
-    return Camera(id=cid, model=model, width=w, height=h, fx=fx, fy=fy, cx=cx, cy=cy, distortion=coeffs)
+    cam = Camera(id=cid, model=model, width=w, height=h, fx=fx, fy=fy, cx=cx, cy=cy, distortion=coeffs)
+    _check_distortion(cam, file, where)
+    return cam
+
+
+def _check_distortion(cam: Camera, file: str, where: str) -> None:
+    """The lens model must map the image one-to-one: undistort -> distort returns every border pixel."""
+    if not cam.distorted:
+        return
+    w, h = cam.width, cam.height
+    t = np.linspace(0.0, 1.0, 65)
+    border = np.concatenate([np.stack([t * (w - 1), np.zeros_like(t)], 1),
+                             np.stack([t * (w - 1), np.full_like(t, h - 1)], 1),
+                             np.stack([np.zeros_like(t), t * (h - 1)], 1),
+                             np.stack([np.full_like(t, w - 1), t * (h - 1)], 1)])
+    with np.errstate(all="ignore"):
+        back = cam.project(cam.unproject(border))
+        err = np.abs(back - border).max() if np.all(np.isfinite(back)) else math.inf
+    if not err <= DISTORTION_TOL_PX:
+        raise input_error(file, f"the lens distortion cannot be inverted at the image border "
+                          f"(round trip off by {err:.3g} px)", field=f"{where}.distortion",
+                          hint="check the coefficient order: OpenCV's k1, k2, p1, p2, k3")
+
+
+def _matrix(value: Any, file: str, view: str, fld: str) -> np.ndarray:
+    """A 3x4 or 4x4 nested list of plain numbers -> (rows, 4) float64; nothing else is taken as one."""
+    if not isinstance(value, list) or len(value) not in (3, 4):
+        raise input_error(file, f"expected a 3x4 or 4x4 matrix (a list of rows), got {_short(value)}",
+                          view=view, field=fld)
+    rows = []
+    for i, row in enumerate(value):
+        if not isinstance(row, list) or len(row) != 4:
+            raise input_error(file, f"row {i} must be a list of 4 numbers, got {_short(row)}", view=view, field=fld)
+        rows.append([_number(x, file, view=view, fld=f"{fld}[{i}][{j}]") for j, x in enumerate(row)])
+    return np.array(rows, dtype=np.float64)
 
 
 def parse_pose(value: Any, file: str, view: str) -> np.ndarray:
-    """3x4 or 4x4 nested list -> (4, 4) float64; the 3x3 block must be a proper rotation."""
+    """3x4 or 4x4 nested list -> (4, 4) float64; the 3x3 block must be a proper rotation.
+
+    A block within ROTATION_TOL of a rotation (rounded printing) is replaced by the nearest
+    rotation (SVD), so everything downstream works with an exact rigid transform.
+    """
     fld = "world_to_camera"
-    try:
-        m = np.array(value, dtype=np.float64)
-    except (TypeError, ValueError):
-        raise input_error(file, "expected a 3x4 or 4x4 matrix of numbers", view=view, field=fld) from None
-    if m.shape not in ((3, 4), (4, 4)):
-        raise input_error(file, f"expected a 3x4 or 4x4 matrix, got shape {m.shape}", view=view, field=fld)
-    if not np.all(np.isfinite(m)):
-        raise input_error(file, "contains NaN or infinite values", view=view, field=fld)
+    m = _matrix(value, file, view, fld)
     if m.shape == (4, 4) and not np.allclose(m[3], [0, 0, 0, 1], atol=1e-9):
         raise input_error(file, f"last row must be [0, 0, 0, 1], got {m[3].tolist()}", view=view, field=fld)
     R = m[:3, :3]
     ortho = np.abs(R.T @ R - np.eye(3)).max()
     det = float(np.linalg.det(R))
     if ortho > ROTATION_TOL or abs(det - 1) > ROTATION_TOL:
-        raise input_error(file, f"the 3x3 block is not a rotation (max |RᵀR − I| = {ortho:.2g}, det = {det:.4g})",
+        what = "a mirror (det < 0)" if det < 0 else "not a rotation"
+        raise input_error(file, f"the 3x3 block is {what} (max |RᵀR − I| = {ortho:.2g}, det = {det:.4g})",
                           view=view, field=fld,
                           hint="world_to_camera must be a rigid transform; scale belongs in the mesh or 'unit'")
+    u, _, vt = np.linalg.svd(R)
     out = np.eye(4)
-    out[:3, :4] = m[:3, :4]
+    out[:3, :3] = u @ vt
+    out[:3, 3] = m[:3, 3]
     return out
 
 
+class _StrictLoader(yaml.SafeLoader):
+    """PyYAML's safe loader, refusing a key given twice in one mapping (PyYAML keeps the last silently)."""
+
+
+def _no_duplicates(loader: _StrictLoader, node: yaml.MappingNode, deep: bool = False) -> dict:
+    seen: set = set()
+    for key_node, _ in node.value:
+        key = loader.construct_object(key_node, deep=deep)
+        try:
+            dup = key in seen
+            seen.add(key)
+        except TypeError:       # unhashable key: let the normal constructor report it
+            break
+        if dup:
+            raise yaml.constructor.ConstructorError(None, None, f"key {_short(key, 30)} appears twice",
+                                                    key_node.start_mark)
+    return loader.construct_mapping(node, deep=deep)
+
+
+_StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _no_duplicates)
+
+
+def _load_yaml(path: Path, file: str) -> Any:
+    try:
+        size = path.stat().st_size
+        if size > MAX_MANIFEST_BYTES:
+            raise input_error(file, f"is {size / 2**20:.0f} MiB; a scene description is a few kB",
+                              hint="is this the right file?")
+        text = path.read_bytes().decode("utf-8")
+        return yaml.load(text, Loader=_StrictLoader)  # noqa: S506 (a SafeLoader subclass)
+    except yaml.YAMLError as e:
+        first = " ".join(str(e).split())[:200]
+        raise input_error(file, f"not valid YAML: {first}") from None
+    except UnicodeDecodeError:
+        raise input_error(file, "not UTF-8 text", hint="save scene.yaml as UTF-8") from None
+    except RecursionError:
+        raise input_error(file, "nested too deeply to be a scene description") from None
+    except OSError as e:
+        raise input_error(file, f"cannot read: {e.strerror or e}") from None
+
+
+def _parse_view(i: int, vd: Any, file: str, root: Path, cameras: dict[str, Camera], seen: set[str]) -> View:
+    if not isinstance(vd, dict):
+        raise input_error(file, f"expected a mapping, got {_short(vd)}", field=f"views[{i}]")
+    name = _text_id(vd.get("name"))
+    if name is None:
+        raise input_error(file, f"missing or not text: {_short(vd.get('name'))}", field=f"views[{i}].name",
+                          hint="write the name in quotes")
+    _unknown_keys(vd, VIEW_KEYS, file, view=name, where=f"views[{i}]")
+    if name in seen:
+        raise input_error(file, "duplicate view name", view=name, field="name",
+                          hint="every view needs its own name")
+    seen.add(name)
+    for k in ("image", "camera", "world_to_camera"):
+        if k not in vd:
+            raise input_error(file, "missing", view=name, field=k)
+    cid = _text_id(vd["camera"])
+    if cid not in cameras:
+        raise input_error(file, f"unknown camera id {_short(vd['camera'])}", view=name, field="camera",
+                          hint=f"defined: {', '.join(sorted(cameras))}")
+    image = _resolve_path(root, vd["image"], file, view=name, fld="image")
+    mask = None
+    if vd.get("mask") is not None:
+        mask = _resolve_path(root, vd["mask"], file, view=name, fld="mask")
+    holdout = vd.get("holdout", False)
+    if not isinstance(holdout, bool):
+        raise input_error(file, f"expected true or false, got {_short(holdout)}", view=name, field="holdout")
+    pose = parse_pose(vd["world_to_camera"], file, name)
+    return View(name=name, image=image, mask=mask, camera=cameras[cid], world_to_camera=pose, holdout=holdout)
+
+
 def read_manifest(path: str | Path) -> Manifest:
-    """Parse and validate scene.yaml; check every referenced file exists inside the scene folder."""
+    """Parse and validate scene.yaml; check every referenced file exists inside the scene folder.
+
+    Raises only InputError (message names file, view and field), whatever the file holds.
+    """
     path = Path(path)
     file = str(path)
-    if path.is_dir():
-        path = path / "scene.yaml"
-        file = str(path)
-    if not path.is_file():
-        raise input_error(file, "scene file not found")
     try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except (yaml.YAMLError, UnicodeDecodeError) as e:
-        raise input_error(file, f"not valid YAML: {str(e).splitlines()[0]}") from None
+        if path.is_dir():
+            path = path / "scene.yaml"
+            file = str(path)
+        found = path.is_file()
+    except (OSError, ValueError) as e:
+        raise input_error(file, f"cannot use this scene path: {e}") from None
+    if not found:
+        raise input_error(file, "scene file not found", hint="pass scene=path/to/scene.yaml or its folder")
+    data = _load_yaml(path, file)
     if not isinstance(data, dict):
-        raise input_error(file, "expected a mapping at the top level")
+        raise input_error(file, f"expected a mapping at the top level, got {_short(data)}")
     _unknown_keys(data, TOP_KEYS, file, view=None, where="the top level")
     if data.get("format") != FORMAT:
-        raise input_error(file, f"expected '{FORMAT}', got {data.get('format')!r}", field="format")
+        raise input_error(file, f"expected '{FORMAT}', got {_short(data.get('format'))}", field="format")
     root = path.parent
     if "mesh" not in data:
         raise input_error(file, "missing", field="mesh")
     mesh = _resolve_path(root, data["mesh"], file, view=None, fld="mesh")
     unit = data.get("unit", None)
-    if unit not in UNITS:
-        raise input_error(file, f"unsupported unit {unit!r}", field="unit",
+    if not isinstance(unit, str) or unit not in UNITS:
+        raise input_error(file, "missing" if unit is None else f"unsupported unit {_short(unit)}", field="unit",
                           hint="use meter, centimeter, millimeter, inch or foot")
     cams_raw = data.get("cameras")
     if not isinstance(cams_raw, dict) or not cams_raw:
-        raise input_error(file, "expected a non-empty mapping of camera id -> intrinsics", field="cameras")
-    cameras = {str(cid): parse_camera(str(cid), d, file) for cid, d in cams_raw.items()}
+        raise input_error(file, f"expected a non-empty mapping of camera id -> intrinsics, got {_short(cams_raw)}",
+                          field="cameras")
+    cameras: dict[str, Camera] = {}
+    for key, d in cams_raw.items():
+        cid = _text_id(key)
+        if cid is None:
+            raise input_error(file, f"camera id {_short(key)} is not text", field="cameras")
+        if cid in cameras:
+            raise input_error(file, f"camera id {cid!r} given twice", field="cameras")
+        cameras[cid] = parse_camera(cid, d, file)
     views_raw = data.get("views")
     if not isinstance(views_raw, list) or not views_raw:
-        raise input_error(file, "expected a non-empty list of views", field="views")
-    views: list[View] = []
+        raise input_error(file, f"expected a non-empty list of views, got {_short(views_raw)}", field="views")
     seen: set[str] = set()
-    for i, vd in enumerate(views_raw):
-        if not isinstance(vd, dict):
-            raise input_error(file, "expected a mapping", field=f"views[{i}]")
-        name = vd.get("name")
-        if not isinstance(name, str) or not name:
-            raise input_error(file, f"missing or not text: {name!r}", field=f"views[{i}].name")
-        _unknown_keys(vd, VIEW_KEYS, file, view=name, where=f"views[{i}]")
-        if name in seen:
-            raise input_error(file, "duplicate view name", view=name, field="name")
-        seen.add(name)
-        for k in ("image", "camera", "world_to_camera"):
-            if k not in vd:
-                raise input_error(file, "missing", view=name, field=k)
-        cid = str(vd["camera"])
-        if cid not in cameras:
-            raise input_error(file, f"unknown camera id {cid!r}", view=name, field="camera",
-                              hint=f"defined: {', '.join(sorted(cameras))}")
-        image = _resolve_path(root, vd["image"], file, view=name, fld="image")
-        mask = None
-        if vd.get("mask") is not None:
-            mask = _resolve_path(root, vd["mask"], file, view=name, fld="mask")
-        holdout = vd.get("holdout", False)
-        if not isinstance(holdout, bool):
-            raise input_error(file, f"expected true or false, got {holdout!r}", view=name, field="holdout")
-        pose = parse_pose(vd["world_to_camera"], file, name)
-        views.append(View(name=name, image=image, mask=mask, camera=cameras[cid],
-                          world_to_camera=pose, holdout=holdout))
+    views = [_parse_view(i, vd, file, root, cameras, seen) for i, vd in enumerate(views_raw)]
     n_fit = sum(not v.holdout for v in views)
     if n_fit == 0:
         raise input_error(file, "every view is held out; nothing to fit", field="views[].holdout",
                           hint="mark at least two views 'holdout: false'")
     if n_fit < 2:
-        raise input_error(file, f"only {n_fit} fitted view; at least 2 are needed", field="views[].holdout")
+        raise input_error(file, f"only {n_fit} fitted view; at least 2 are needed", field="views[].holdout",
+                          hint="mark at least two views 'holdout: false'")
     return Manifest(path=path, mesh=mesh, unit=unit, cameras=cameras, views=tuple(views))
-
-
-def check_image_sizes(man: Manifest) -> None:
-    """Each photo and mask must match its camera's width x height (header read only)."""
-    from PIL import Image, ImageOps, UnidentifiedImageError
-
-    for v in man.views:
-        for fld, p in (("image", v.image), ("mask", v.mask)):
-            if p is None:
-                continue
-            try:
-                with Image.open(p) as im:
-                    size = im.size
-                    orient = im.getexif().get(0x0112, 1)
-            except (UnidentifiedImageError, OSError) as e:
-                raise input_error(str(man.path), f"cannot read '{p.name}': {e}", view=v.name, field=fld) from None
-            if orient in (5, 6, 7, 8):  # EXIF orientations that swap width and height
-                size = (size[1], size[0])
-            if size != (v.camera.width, v.camera.height):
-                raise input_error(str(man.path), f"'{p.name}' is {size[0]}x{size[1]} but camera "
-                                  f"'{v.camera.id}' is {v.camera.width}x{v.camera.height}", view=v.name, field=fld)

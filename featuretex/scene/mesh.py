@@ -9,6 +9,7 @@ u = (j + 0.5) / T, v = 1 - (i + 0.5) / T. The glTF exporter flips v as glTF requ
 from __future__ import annotations
 
 import hashlib
+import logging
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -16,6 +17,8 @@ import numpy as np
 import trimesh
 
 from featuretex.errors import input_error
+
+log = logging.getLogger("featuretex")
 
 
 @dataclass(frozen=True)
@@ -68,9 +71,12 @@ def load_mesh(path: Path, manifest_file: str, *, atlas_resolution: int = 1024) -
     try:
         loaded = trimesh.load(str(path), process=False, force="mesh")
     except Exception as e:  # trimesh raises many types for broken files
-        raise input_error(manifest_file, f"cannot read mesh '{path.name}': {e}", field="mesh") from None
+        what = " ".join(str(e).split())[:200] or type(e).__name__
+        raise input_error(manifest_file, f"cannot read mesh '{path.name}': {what}", field="mesh",
+                          hint="the file is damaged, truncated or not a mesh format trimesh reads") from None
     if not isinstance(loaded, trimesh.Trimesh) or len(loaded.faces) == 0:
-        raise input_error(manifest_file, f"mesh '{path.name}' has no faces", field="mesh")
+        raise input_error(manifest_file, f"mesh '{path.name}' has no faces", field="mesh",
+                          hint="a point cloud cannot be textured; mesh it first (or the file is truncated)")
     v = np.asarray(loaded.vertices, dtype=np.float64)
     f = np.asarray(loaded.faces, dtype=np.int64)
     if not np.all(np.isfinite(v)):
@@ -82,9 +88,13 @@ def load_mesh(path: Path, manifest_file: str, *, atlas_resolution: int = 1024) -
     _, first = np.unique(np.sort(f, axis=1), axis=0, return_index=True)
     uniq = np.zeros(len(f), bool)
     uniq[first] = True
+    if not keep.all() or not uniq.all():
+        log.warning("%s: mesh '%s': ignoring %d zero-area and %d repeated face(s) of %d", manifest_file,
+                    path.name, int((~keep).sum()), int((keep & ~uniq).sum()), len(f))
     f = f[keep & uniq]
     if len(f) == 0:
-        raise input_error(manifest_file, f"mesh '{path.name}' has only degenerate faces", field="mesh")
+        raise input_error(manifest_file, f"mesh '{path.name}' has only zero-area faces", field="mesh",
+                          hint="the mesh has no surface to put a texture on")
     uv = None
     vis = getattr(loaded, "visual", None)
     if vis is not None and getattr(vis, "uv", None) is not None and len(vis.uv) == len(v):
