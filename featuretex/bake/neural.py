@@ -1,0 +1,233 @@
+"""Bake the fitted model into one ordinary RGB texture, in linear light.
+
+texture = head + residual, where
+
+* head: the model's per-texel head evaluated in texture space. The head is linear in the
+  features, so this is exact: sampling the head texture equals applying the head to sampled
+  features (see featuretex.model.decoders).
+* residual: what the screen-space decoder adds over the head, rendered at every fitted view,
+  reprojected onto the texels that view sees (visibility test, cos x projected-area weights, the
+  same `view_samples` as the classical bake) and combined per texel by a robust mean. The decoder
+  works before the per-view colour affine (it never sees which view it renders), so its residual
+  is already at the reference exposure: nothing of a photo's own exposure reaches the texture.
+
+Robust mean: a weighted median per channel as the start (breakdown point 50 % of the weight, so a
+single view with a highlight or a misregistration cannot drag it), then a few iterations of a
+Cauchy-weighted mean (IRLS). The median alone picks one view's value per texel and keeps that
+view's noise; the reweighted mean averages every view that agrees with the consensus and gives
+views far from it a weight that falls to zero (Cauchy's influence redescends), so it keeps the
+median's robustness at a lower noise.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage
+
+from featuretex.bake.baseline import BaselineConfig, usable_mask, view_samples
+from featuretex.bake.gutter import fill_texture
+from featuretex.bake.sampling import sample_image
+from featuretex.errors import input_error
+from featuretex.raster.gbuffer import GBuffer
+from featuretex.raster.uvspace import TexelBuffer
+from featuretex.scene.loaded import Scene
+from featuretex.scene.manifest import View
+
+ROBUST_MODES = ("cauchy", "median", "mean")
+MAD_TO_SIGMA = 1.4826    # sigma of Gaussian noise = 1.4826 x median absolute deviation (Hampel 1974)
+CAUCHY_C = 2.3849        # Cauchy tuning constant for 95 % efficiency on Gaussian noise (Holland &
+                         # Welsch 1977; value recalled from memory)
+
+
+@dataclass
+class BakeConfig:
+    residual: bool = True          # add the screen-space decoder's reprojected residual
+    robust: str = "cauchy"         # per-texel combination: cauchy (median + IRLS), median, mean
+    iterations: int = 3            # Cauchy reweighting passes after the median
+    scale_min: float = 0.005       # floor of the Cauchy scale, linear light (about 1/255 in sRGB mid-tones)
+    min_cos: float = 0.1           # views seeing a texel more grazing than this are dropped
+    depth_tol_px: float = 2.0      # visibility: allowed depth gap, in pixel footprints
+    edge_erode_px: int = 2         # drop samples this close to a silhouette (decoder padding, background)
+    gutter: int = 8                # texels of gutter padding; the pipeline sets it from texture.gutter
+
+
+@dataclass
+class BakeResult:
+    texture_lin: np.ndarray   # (T, T, 3) float32 linear in [0, 1], gutter filled
+    seen: np.ndarray          # (T, T) bool: texels at least one fitted view sees (residual measured)
+    head_lin: np.ndarray      # (T, T, 3) float32 linear: the exact per-texel head alone
+    residual_lin: np.ndarray  # (T, T, 3) float32 linear: the combined residual (0 where unseen)
+    weight: np.ndarray        # (T, T) float32 total robust weight of the residual samples
+
+
+@dataclass
+class ResidualSamples:
+    """Every (texel, view) observation of the residual."""
+
+    idx: np.ndarray      # (M,) int64 flat texel index
+    value: np.ndarray    # (M, 3) float32 residual, linear light
+    weight: np.ndarray   # (M,) float64 cos x projected texel area (pixels^2 per scene unit^2)
+    view: np.ndarray     # (M,) int32 position of the view in the list of fitted views
+
+
+def _check(cfg: BakeConfig) -> None:
+    if cfg.robust not in ROBUST_MODES:
+        raise input_error("config", f"unknown robust mode {cfg.robust!r}; choose one of {', '.join(ROBUST_MODES)}",
+                          field="bake.robust")
+    if cfg.iterations < 0 or cfg.scale_min <= 0 or cfg.gutter < 0:
+        raise input_error("config", "bake.iterations and bake.gutter must be >= 0 and bake.scale_min > 0",
+                          field="bake")
+
+
+def _sampling_config(cfg: BakeConfig) -> BaselineConfig:
+    return BaselineConfig(min_cos=cfg.min_cos, depth_tol_px=cfg.depth_tol_px,
+                          edge_erode_px=cfg.edge_erode_px, gutter=cfg.gutter)
+
+
+def gather_samples(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer,
+                   residual_of: Callable[[View], np.ndarray] | None, cfg: BakeConfig,
+                   views: Iterable[View] | None = None) -> ResidualSamples:
+    """Reproject per-view residual images onto the texels each view sees.
+
+    residual_of(view) -> (H, W, 3) float32 linear residual of the render at that view; None
+    gathers only where the texels are seen (values 0). views: default the fitted views.
+    """
+    views = list(scene.manifest.fitted if views is None else views)
+    scfg = _sampling_config(cfg)
+    parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
+    for k, view in enumerate(views):
+        gbuf = gbuffers[view.name]
+        s = view_samples(texels, view, gbuf, usable_mask(scene, view, gbuf, cfg.edge_erode_px), scfg)
+        if len(s.idx) == 0:
+            continue
+        if residual_of is None:
+            val = np.zeros((len(s.idx), 3), np.float32)
+        else:
+            val = sample_image(np.asarray(residual_of(view), np.float32), s.xy)
+        w = s.cos.astype(np.float64) * s.px_per_unit.astype(np.float64) ** 2
+        parts.append((s.idx, val, w, np.full(len(s.idx), k, np.int32)))
+    if not parts:
+        return ResidualSamples(np.zeros(0, np.int64), np.zeros((0, 3), np.float32), np.zeros(0), np.zeros(0, np.int32))
+    idx, val, w, vi = (np.concatenate(p) for p in zip(*parts))
+    return ResidualSamples(idx=idx, value=val, weight=w, view=vi)
+
+
+def weighted_median(idx: np.ndarray, value: np.ndarray, weight: np.ndarray, n: int) -> np.ndarray:
+    """(n, C) per-group, per-channel lower weighted median of `value` (M, C) grouped by `idx` (M,)
+    in [0, n), with weights (M,) > 0; 0 for groups without samples.
+
+    The lower weighted median is the smallest value whose cumulative weight reaches half the group's.
+    """
+    out = np.zeros((n, value.shape[1]), np.float64)
+    if len(idx) == 0:
+        return out
+    total = np.bincount(idx, weight, n)
+    for c in range(value.shape[1]):
+        order = np.lexsort((value[:, c], idx))
+        i_s, v_s, w_s = idx[order], value[order, c], weight[order]
+        start = np.r_[True, i_s[1:] != i_s[:-1]]
+        cw = np.cumsum(w_s)
+        base = (cw - w_s)[start]                               # cumulative weight before each group
+        within = cw - np.repeat(base, np.diff(np.r_[np.flatnonzero(start), len(i_s)]))
+        reached = within >= 0.5 * total[i_s] * (1 - 1e-12)
+        first = reached & (start | ~np.r_[False, reached[:-1]])
+        out[i_s[first], c] = v_s[first]
+    return out
+
+
+def _weighted_mean(idx: np.ndarray, value: np.ndarray, weight: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
+    wsum = np.bincount(idx, weight, n)
+    acc = np.stack([np.bincount(idx, weight * value[:, c], n) for c in range(value.shape[1])], axis=1)
+    return acc / np.maximum(wsum, 1e-300)[:, None], wsum
+
+
+def robust_combine(s: ResidualSamples, n: int, cfg: BakeConfig) -> tuple[np.ndarray, np.ndarray]:
+    """(n, 3) float64 combined residual per texel and (n,) final total weight (0 = unseen)."""
+    _check(cfg)
+    val = s.value.astype(np.float64)
+    if cfg.robust == "mean" or len(s.idx) == 0:
+        return _weighted_mean(s.idx, val, s.weight, n)
+    est = weighted_median(s.idx, val, s.weight, n)
+    wsum = np.bincount(s.idx, s.weight, n)
+    if cfg.robust == "median":
+        return est, wsum
+    multi = (np.bincount(s.idx, minlength=n) >= 2)[s.idx]     # texels whose views can disagree
+    for _ in range(cfg.iterations):
+        d = val - est[s.idx]
+        mad = float(np.median(np.abs(d[multi]))) if multi.any() else 0.0
+        c = max(CAUCHY_C * MAD_TO_SIGMA * mad, cfg.scale_min)
+        r2 = np.mean(d * d, axis=1) / (c * c)                  # RMS over channels, in scale units
+        est, wsum = _weighted_mean(s.idx, val, s.weight / (1.0 + r2), n)
+    return est, wsum
+
+
+def exact_support(texels: TexelBuffer) -> np.ndarray:
+    """(T, T) bool: texels a bilinear lookup from any surface point can touch (the surface dilated by
+    one texel, 8-connected). There the head is kept as fitted, so the bake renders as the model does."""
+    return ndimage.binary_dilation(texels.valid, structure=np.ones((3, 3), bool))
+
+
+def compose_texture(texels: TexelBuffer, head_lin: np.ndarray, samples: ResidualSamples,
+                    cfg: BakeConfig) -> BakeResult:
+    """head (T, T, 3) linear + robustly combined residual samples -> gutter-filled texture.
+
+    Head: kept on `exact_support`; beyond it the gutter copies the nearest kept texel.
+    Residual: measured on seen texels; unseen surface texels get the smooth pull-push fill (no
+    step where coverage ends); the gutter copies the nearest surface texel.
+    """
+    T = texels.size
+    if head_lin.shape != (T, T, 3):
+        raise ValueError(f"head texture is {head_lin.shape}, texel buffer is {T} x {T}")
+    est, wsum = robust_combine(samples, T * T, cfg)
+    seen = (wsum > 0).reshape(T, T) & texels.valid
+    res = np.where(seen[..., None], est.reshape(T, T, 3), 0.0).astype(np.float32)
+    support = exact_support(texels)
+    head = fill_texture(np.asarray(head_lin, np.float32), support, support, cfg.gutter)
+    res_filled = fill_texture(res, seen, texels.valid, cfg.gutter) if seen.any() else res
+    tex = np.clip(head + res_filled, 0.0, 1.0).astype(np.float32)
+    return BakeResult(texture_lin=tex, seen=seen, head_lin=np.asarray(head_lin, np.float32), residual_lin=res,
+                      weight=wsum.reshape(T, T).astype(np.float32))
+
+
+def bake_model(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, model,
+               cfg: BakeConfig | None = None) -> BakeResult:
+    """Bake a fitted SceneModel into a (T, T, 3) linear texture, T = texels.size (any size: the head
+    is resampled with the model's own mip filter when T differs from the feature texture's)."""
+    from featuretex.fit.render import render_decoder_residual, render_texel_head
+
+    cfg = cfg or BakeConfig()
+    _check(cfg)
+    head = render_texel_head(model, texels.size)
+    use_res = cfg.residual and getattr(model.decoder, "screen", None) is not None
+
+    def residual_of(view: View) -> np.ndarray:
+        return render_decoder_residual(model, scene, gbuffers[view.name], view)
+
+    samples = gather_samples(scene, gbuffers, texels, residual_of if use_res else None, cfg)
+    return compose_texture(texels, head, samples, cfg)
+
+
+def score_bake(scene: Scene, gbuffers: dict[str, GBuffer], texture_lin: np.ndarray, neural: dict | None = None,
+               image_dir=None, seed: int = 0) -> dict:
+    """Held-out figures of a baked texture, for summary.json.
+
+    texture_lin: (T, T, 3) linear. neural: the `score_method` result of the neural render (for the
+    gap). Returns {"baked": score_method(...) incl. per_view, "bake_gap_db": neural - baked in
+    alignment-tolerant PSNR (None without neural scores), "seams": seam_ratio(...) at held-out views}.
+    """
+    from featuretex.bake.seams import seam_ratio
+    from featuretex.render import render_texture
+    from featuretex.score import score_mask, score_method
+
+    held = list(scene.manifest.heldout)
+    renders = {v.name: render_texture(gbuffers[v.name], scene.mesh, texture_lin) for v in held}
+    baked = score_method(scene, gbuffers, renders, image_dir, "baked")
+    gap = None
+    if neural is not None and neural.get("psnr_tolerant") is not None and baked["psnr_tolerant"] is not None:
+        gap = float(neural["psnr_tolerant"] - baked["psnr_tolerant"])
+    masks = {v.name: score_mask(scene, v, gbuffers[v.name]) for v in held}
+    seams = seam_ratio(scene.mesh, gbuffers, renders, held, masks, seed=seed)
+    return {"baked": baked, "bake_gap_db": gap, "seams": seams}
