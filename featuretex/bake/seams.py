@@ -1,8 +1,9 @@
 """Seam visibility of a textured render: do UV island borders show as lines?
 
 At a view, pairs of 4-neighbour pixels on one continuous piece of surface are split in two sets:
-*seam pairs*, whose pixels lie on different UV islands (the rendered UV jumps between them), and
-*interior pairs*, on the same island (a seeded random subset). The measure is
+*seam pairs*, where the rendered UV jumps (the two pixels lie on two sides of a UV seam: two
+islands, or the two edges of one island that wraps around), and *interior pairs*, where it moves
+as smoothly as the surface (a seeded random subset). The measure is
 
     ratio = mean |I(p) - I(q)| over seam pairs / mean |I(p) - I(q)| over interior pairs
 
@@ -16,29 +17,16 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import sparse
-from scipy.sparse.csgraph import connected_components
 
+from featuretex.model.lod import uv_footprint
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.manifest import View
 from featuretex.scene.mesh import SceneMesh
 
+JUMP_FACTOR = 3.0         # |uv(p) - uv(q)| above this many pixel footprints in uv: the UV jumps
 MAX_GAP_PX = 4.0          # neighbours farther apart in 3D than this many pixel footprints: not one surface
 INTERIOR_SAMPLES = 20000  # random interior pairs per view
-
-
-def uv_islands(mesh: SceneMesh) -> np.ndarray:
-    """(F,) int64 island label of each face: connected components of faces sharing a vertex.
-
-    Vertices are split along UV seams (one UV per vertex), so faces sharing a vertex index share
-    its UV: an island is a piece of the layout that is continuous in UV.
-    """
-    F = len(mesh.faces)
-    rows = np.repeat(np.arange(F), 3)
-    inc = sparse.csr_matrix((np.ones(3 * F), (rows, mesh.faces.ravel())), shape=(F, len(mesh.vertices)))
-    _, labels = connected_components(inc @ inc.T, directed=False)
-    return labels.astype(np.int64)
 
 
 @dataclass
@@ -63,15 +51,20 @@ class SeamStats:
                 "seam_pairs": self.seam_pairs, "interior_pairs": self.interior_pairs}
 
 
-def neighbour_pairs(gbuf: GBuffer, mesh: SceneMesh, view: View, mask: np.ndarray, islands: np.ndarray
+def neighbour_pairs(gbuf: GBuffer, mesh: SceneMesh, view: View, mask: np.ndarray
                     ) -> tuple[np.ndarray, np.ndarray]:
-    """(K, 2) seam and (L, 2) interior pairs of flat pixel indices (4-neighbours, both in `mask`
-    (H, W) bool, on one continuous surface)."""
+    """(K, 2) seam and (L, 2) interior pairs of flat pixel indices: 4-neighbours, both in `mask`
+    (H, W) bool, on one continuous surface.
+
+    Within an island a one-pixel step moves uv by at most the pixel's footprint rho (the longer
+    screen-space UV derivative, computed per triangle); a step across a seam lands elsewhere in the
+    layout, so a move of more than JUMP_FACTOR footprints marks a seam.
+    """
     H, W = gbuf.shape
-    tri = np.asarray(gbuf.tri)
     pos = gbuf.position(mesh)                                         # (H, W, 3) scene units
+    uv = gbuf.uv(mesh).astype(np.float64)                             # (H, W, 2)
+    rho = uv_footprint(gbuf, mesh, view).astype(np.float64)           # (H, W) uv units per pixel
     foot = np.asarray(gbuf.depth, np.float64) / (0.5 * (view.camera.fx + view.camera.fy))  # units per px
-    isl = np.where(tri >= 0, islands[np.maximum(tri, 0)], -1)
     flat = np.arange(H * W).reshape(H, W)
     seams, inner = [], []
     for a, b in (((slice(None), slice(0, W - 1)), (slice(None), slice(1, W))),
@@ -79,18 +72,18 @@ def neighbour_pairs(gbuf: GBuffer, mesh: SceneMesh, view: View, mask: np.ndarray
         ok = mask[a] & mask[b]
         gap = np.linalg.norm(pos[a] - pos[b], axis=-1)
         ok &= gap <= MAX_GAP_PX * np.maximum(foot[a], foot[b])
+        jump = np.linalg.norm(uv[a] - uv[b], axis=-1) > JUMP_FACTOR * np.maximum(rho[a], rho[b]) + 1e-9
         pair = np.stack([flat[a][ok], flat[b][ok]], axis=1)
-        cross = isl[a][ok] != isl[b][ok]
-        seams.append(pair[cross])
-        inner.append(pair[~cross])
+        seams.append(pair[jump[ok]])
+        inner.append(pair[~jump[ok]])
     return np.concatenate(seams), np.concatenate(inner)
 
 
 def seam_stats(render_lin: np.ndarray, gbuf: GBuffer, mesh: SceneMesh, view: View, mask: np.ndarray,
-               islands: np.ndarray, rng: np.random.Generator, interior_samples: int = INTERIOR_SAMPLES
+               rng: np.random.Generator, interior_samples: int = INTERIOR_SAMPLES
                ) -> SeamStats:
     """Sums of one view. render_lin: (H, W, 3) linear render; mask: (H, W) bool pixels to judge."""
-    seams, inner = neighbour_pairs(gbuf, mesh, view, np.asarray(mask, bool), islands)
+    seams, inner = neighbour_pairs(gbuf, mesh, view, np.asarray(mask, bool))
     if len(inner) > interior_samples:
         inner = inner[np.sort(rng.choice(len(inner), interior_samples, replace=False))]
     img = linear_to_srgb(render_lin).reshape(-1, render_lin.shape[-1]).astype(np.float64)
@@ -105,9 +98,8 @@ def seam_ratio(mesh: SceneMesh, gbuffers: dict[str, GBuffer], renders: dict[str,
                views: list[View], masks: dict[str, np.ndarray], seed: int = 0) -> dict:
     """Pooled seam measure over `views`: {"ratio", "seam_mad", "interior_mad", "seam_pairs",
     "interior_pairs"} (ratio None when no seam is in sight). renders: view -> (H, W, 3) linear."""
-    islands = uv_islands(mesh)
     total = SeamStats()
     for k, view in enumerate(views):
         rng = np.random.default_rng([seed, k])
-        total += seam_stats(renders[view.name], gbuffers[view.name], mesh, view, masks[view.name], islands, rng)
+        total += seam_stats(renders[view.name], gbuffers[view.name], mesh, view, masks[view.name], rng)
     return total.as_dict()
