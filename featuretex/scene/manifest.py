@@ -215,7 +215,8 @@ def parse_camera(cid: str, d: Any, file: str) -> Camera:
 
 
 def _check_distortion(cam: Camera, file: str, where: str) -> None:
-    """The lens model must map the image one-to-one: undistort -> distort returns every border pixel."""
+    """The lens model must map the image one-to-one: along every line from the principal point to
+    the border, undistorted points move steadily outwards and distort back onto their pixels."""
     if not cam.distorted:
         return
     w, h = cam.width, cam.height
@@ -223,14 +224,22 @@ def _check_distortion(cam: Camera, file: str, where: str) -> None:
     border = np.concatenate([np.stack([t * (w - 1), np.zeros_like(t)], 1),
                              np.stack([t * (w - 1), np.full_like(t, h - 1)], 1),
                              np.stack([np.zeros_like(t), t * (h - 1)], 1),
-                             np.stack([np.full_like(t, w - 1), t * (h - 1)], 1)])
+                             np.stack([np.full_like(t, w - 1), t * (h - 1)], 1)])      # (260, 2) px
+    centre = np.array([cam.cx, cam.cy])
+    frac = np.linspace(0.05, 1.0, 20)[:, None, None]
+    px = centre + frac * (border - centre)                                               # (20, 260, 2)
     with np.errstate(all="ignore"):
-        back = cam.project(cam.unproject(border))
-        err = np.abs(back - border).max() if np.all(np.isfinite(back)) else math.inf
-    if not err <= DISTORTION_TOL_PX:
-        raise input_error(file, f"the lens distortion cannot be inverted at the image border "
-                          f"(round trip off by {err:.3g} px)", field=f"{where}.distortion",
-                          hint="check the coefficient order: OpenCV's k1, k2, p1, p2, k3")
+        rays = cam.unproject(px.reshape(-1, 2))
+        back = cam.project(rays).reshape(px.shape)
+        ideal = (rays[:, :2] * [cam.fx, cam.fy]).reshape(px.shape)   # undistorted offsets, pixels
+        outward = np.einsum("fnk,nk->fn", ideal, border - centre)
+        err = np.abs(back - px).max() if np.all(np.isfinite(back)) else math.inf
+        steady = bool(np.all(np.diff(outward, axis=0) > 0))
+    if not (err <= DISTORTION_TOL_PX and steady):
+        raise input_error(file, "the lens distortion cannot be inverted reliably inside the image "
+                          f"(pixel -> ray -> pixel off by {err:.3g} px{'' if steady else '; rays fold back'})",
+                          field=f"{where}.distortion",
+                          hint="check the coefficients and their order: OpenCV's k1, k2, p1, p2, k3")
 
 
 def _matrix(value: Any, file: str, view: str, fld: str) -> np.ndarray:
