@@ -285,6 +285,31 @@ def _texture_image(mesh: trimesh.Trimesh) -> Image.Image | None:
     return img.convert("RGB") if img is not None else None
 
 
+_GL_TEXTURE_MAX_ANISOTROPY = 0x84FE   # GL 4.6 / ARB_texture_filter_anisotropic
+
+
+def _texture_class(pyrender, anisotropy: float):
+    """pyrender.Texture, or a subclass that also sets anisotropic filtering once uploaded.
+
+    Trilinear mipmapping alone picks the blur of a texel footprint's longest axis, which smears
+    stretched texels (a jug's neck seen side-on) across several pixels; anisotropic filtering
+    averages along the footprint instead, closer to what a camera pixel integrates.
+    """
+    if anisotropy <= 1:
+        return pyrender.Texture
+
+    class AnisotropicTexture(pyrender.Texture):
+        def _add_to_context(self):
+            super()._add_to_context()
+            from OpenGL.GL import GL_TEXTURE_2D, glBindTexture, glTexParameterf
+
+            glBindTexture(GL_TEXTURE_2D, self._texid)
+            glTexParameterf(GL_TEXTURE_2D, _GL_TEXTURE_MAX_ANISOTROPY, float(anisotropy))
+            glBindTexture(GL_TEXTURE_2D, 0)
+
+    return AnisotropicTexture
+
+
 def _material(pyrender, mesh: trimesh.Trimesh, lit: bool, texture_filter: str, roughness: float):
     from pyrender.constants import GLTF
 
@@ -292,9 +317,11 @@ def _material(pyrender, mesh: trimesh.Trimesh, lit: bool, texture_filter: str, r
     tex = None
     if img is not None:
         mag, minf = {"nearest": (GLTF.NEAREST, GLTF.NEAREST), "linear": (GLTF.LINEAR, GLTF.LINEAR),
-                     "mipmap": (GLTF.LINEAR, GLTF.LINEAR_MIPMAP_LINEAR)}[texture_filter]
+                     "mipmap": (GLTF.LINEAR, GLTF.LINEAR_MIPMAP_LINEAR),
+                     "anisotropic": (GLTF.LINEAR, GLTF.LINEAR_MIPMAP_LINEAR)}[texture_filter]
         sampler = pyrender.Sampler(magFilter=mag, minFilter=minf, wrapS=GLTF.CLAMP_TO_EDGE, wrapT=GLTF.CLAMP_TO_EDGE)
-        tex = pyrender.Texture(source=np.asarray(img, np.uint8), source_channels="RGB", sampler=sampler)
+        cls = _texture_class(pyrender, 16.0 if texture_filter == "anisotropic" else 1.0)
+        tex = cls(source=np.asarray(img, np.uint8), source_channels="RGB", sampler=sampler)
     return pyrender.MetallicRoughnessMaterial(baseColorFactor=[1.0, 1.0, 1.0, 1.0] if tex else [0.7, 0.7, 0.7, 1.0],
                                               baseColorTexture=tex, metallicFactor=0.0,
                                               roughnessFactor=float(roughness), doubleSided=not lit)
@@ -339,15 +366,17 @@ def _light_pose(direction: np.ndarray) -> np.ndarray:
 
 def render_views(mesh: trimesh.Trimesh, views: Sequence[ViewSpec], *, lit: bool, light_seed: int = 0,
                  background: Sequence[float] = (0.0, 0.0, 0.0), ambient: float = 0.18,
-                 roughness: float = 0.45, texture_filter: str = "mipmap",
+                 roughness: float = 0.45, texture_filter: str = "anisotropic",
+                 lights: Sequence[tuple[Sequence[float], float]] | None = None,
                  znear: float | None = None, zfar: float | None = None) -> list[tuple[np.ndarray, np.ndarray]]:
     """Render `mesh` (with TextureVisuals: uv + image; else plain grey) from each view with pyrender.
 
     Returns per view (image (H, W, 3) float32 linear RGB, mask (H, W) bool from depth > 0); see the
     module doc for what the linear values mean in each mode. `background` is linear RGB.
-    `texture_filter`: 'mipmap' (trilinear, like a camera averaging over the pixel), 'linear' or
-    'nearest'. `lit=True`: `soft_lights(light_seed)` + `ambient`, glaze-like dielectric specular
-    (F0 = 0.04 in pyrender) with `roughness`; lights are fixed in the world frame.
+    `texture_filter`: 'anisotropic' (trilinear + 16x anisotropic: close to a camera pixel averaging
+    its footprint), 'mipmap' (trilinear only), 'linear' or 'nearest' (no mipmaps). `lit=True`: `soft_lights(light_seed)` + `ambient`, glaze-like dielectric specular
+    (F0 = 0.04 in pyrender) with `roughness`; lights are fixed in the world frame. `lights`, when
+    given, replaces the soft lights: (direction the light travels (3,), intensity) pairs.
     Pinhole only: a camera with distortion raises ValueError. One OffscreenRenderer serves all views.
     """
     pyrender = _pyrender()
@@ -357,9 +386,9 @@ def render_views(mesh: trimesh.Trimesh, views: Sequence[ViewSpec], *, lit: bool,
     scene = pyrender.Scene(bg_color=[*map(float, bg_out), 1.0], ambient_light=[float(ambient)] * 3 if lit else [0.0] * 3)
     scene.add(_pyrender_mesh(pyrender, mesh, lit, texture_filter, roughness))
     if lit:
-        for direction, power in soft_lights(light_seed):
+        for direction, power in (soft_lights(light_seed) if lights is None else lights):
             scene.add(pyrender.DirectionalLight(color=[1.0, 1.0, 1.0], intensity=float(power)),
-                      pose=_light_pose(direction))
+                      pose=_light_pose(np.asarray(direction, np.float64)))
     v = np.asarray(mesh.vertices, np.float64)
     span = float(np.linalg.norm(v.max(0) - v.min(0)))
     flags = pyrender.RenderFlags.FLAT if not lit else pyrender.RenderFlags.NONE
