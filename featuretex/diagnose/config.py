@@ -1,0 +1,54 @@
+"""Every threshold of the diagnosis. Lengths are a fraction of the object size (the diagonal of the
+mesh's bounding box) unless a `*_units` override in scene units is set (> 0).
+
+The lead mounts this dataclass as the Hydra group `diagnose` (`diagnose.sweep_fraction=0.05`...).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass
+class DiagnoseConfig:
+    # working grid: the diagnosis runs on its own UV grid about one photo pixel per texel
+    max_grid: int = 256              # texels per side at most (speed); fields are resampled to the texture
+    min_grid: int = 32
+    # coverage: which views count as seeing a texel
+    min_cos: float = 0.26            # steeper than ~75 deg from the normal is too grazing (common practice)
+    max_footprint_ratio: float = 3.0  # a view whose pixel is > this x the scene's median pixel footprint is too far
+    depth_tol_px: float = 2.0        # visibility: allowed depth gap, in pixel footprints
+    edge_erode_px: int = 2           # drop samples this close to a silhouette
+    min_views: int = 2               # 'uncovered' = seen by fewer usable views than this
+    # photo-consistency: patch normalised cross-correlation on the UV grid
+    patch: int = 5                   # patch edge, texels of the working grid (odd)
+    min_patch_fill: float = 0.6      # fraction of a patch that must be seen for its NCC to count
+    min_contrast: float = 0.012      # patch std (sRGB grey) below which a patch has no texture to judge
+    # displacement sweep along the normal (plane sweep, as multi-view stereo does)
+    sweep_fraction: float = 0.03     # half range, fraction of the object size
+    sweep_units: float = 0.0         # half range in scene units (> 0 overrides the fraction)
+    sweep_steps: int = 25            # offsets tested over [-range, +range] (odd, so 0 is one of them)
+    aggregate: int = 5               # box (texels) over which sweep scores are pooled before the argmax
+    sweep_min_gain: float = 0.04     # NCC gain of the best offset over offset 0 that counts as confident
+    sweep_min_score: float = 0.3     # and the best offset's NCC must reach this
+    # alignment evidence (the fit's per-view fields)
+    align_remove_global: bool = True  # subtract each view's median shift (calibration) before local use
+    # tolerances of the per-texel fields (0.5 is reached at the tolerance)
+    geometry_tol_fraction: float = 0.004  # misplacement that counts as geometry error, fraction of size
+    geometry_tol_units: float = 0.0
+    texture_tol: float = 0.03        # consistent residual (sRGB RMS over a patch) that counts as under-fit
+    min_region: int = 9              # geometry / texture regions smaller than this (working texels) are dropped
+    # texture under-fit qualifiers
+    still_falling: float = 0.02      # relative loss drop over the last `tail` of the fit = still improving
+    tail: float = 0.25               # fraction of the fit's steps examined for a falling loss
+    footprint_ratio_tol: float = 1.5  # texture texel > this x the photo pixel = a larger texture would help
+    settled_texture_weight: float = 0.5  # under-fit evidence weight when neither qualifier holds
+    # verdict rules, surface-area fractions
+    rescan_uncovered: float = 0.05   # rescan when more surface than this is uncovered
+    rescan_geometry: float = 0.35    # rescan when more than this is geometry-limited (beyond a fix)
+    fix_geometry_area: float = 0.003  # fix-geometry when geometry-limited area exceeds this ...
+    fix_displacement_fraction: float = 0.004  # ... and its misplacement (90th pct) exceeds this fraction of size
+    fix_displacement_units: float = 0.0
+    refine_texture_area: float = 0.05  # refine-texture when texture-limited area exceeds this
+    refine_dominance: float = 1.0    # ... and is at least this x the geometry-limited area
+    regions_reported: int = 3        # largest regions named in the reasons

@@ -1,0 +1,198 @@
+"""The diagnosis stage: where the remaining error comes from, per texel and for the scan.
+
+Evidence is gathered on a working UV grid of about one photo pixel per texel (at most
+`max_grid`), then resampled to the texture's resolution:
+  coverage      usable views per texel                                  (observe.py)
+  consistency   patch NCC of the views at the scan surface              (consistency.py)
+  sweep         best offset along the normal, NCC plane sweep           (sweep.py)
+  alignment     the fit's per-view fields in scene units (if given)     (alignment.py)
+  under-fit     residual the views agree on but the texture misses      (underfit.py)
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from featuretex.bake.sampling import sample_texture
+from featuretex.diagnose import classify as C
+from featuretex.diagnose.alignment import alignment_evidence, field_at, parse_corrections
+from featuretex.diagnose.config import DiagnoseConfig
+from featuretex.diagnose.consistency import Samples, consensus, loo_ncc
+from featuretex.diagnose.grid import footprint_ratio, resample_to, texel_areas, texel_edge, working_size
+from featuretex.diagnose.observe import Observation, observe
+from featuretex.diagnose.sweep import sweep
+from featuretex.diagnose.underfit import consistent_residual, fit_progress, underfit_weight
+from featuretex.diagnose.verdict import Evidence, decide, geometry_p90, reasons
+from featuretex.raster.gbuffer import GBuffer
+from featuretex.raster.uvspace import TexelBuffer, rasterise_uv, texel_uv
+from featuretex.scene.colour import linear_to_srgb
+from featuretex.scene.loaded import Scene
+
+log = logging.getLogger("featuretex")
+
+
+@dataclass
+class Diagnosis:
+    """Fields at texture resolution (T, T), NaN where unknown (off the surface, or too few views)."""
+
+    geometry: np.ndarray      # float32 0..1, how strongly the error is explained by geometry/alignment
+    texture: np.ndarray       # float32 0..1, texture under-fit
+    coverage: np.ndarray      # float32 usable fitted views seeing the texel (NaN off the surface)
+    displacement: np.ndarray  # float32 offset along the normal to the photographed surface, scene units
+    cls: np.ndarray           # uint8 class (featuretex.diagnose.classify: 0 off, 1 fine, 2 texture,
+                              #   3 geometry, 4 uncovered)
+    areas: dict[str, float]   # surface-area fractions: uncovered, geometry_limited, texture_limited
+    verdict: str              # rescan | fix-geometry | refine-texture | ready
+    reasons: list[str]
+    extra: dict[str, np.ndarray] = field(default_factory=dict)   # more (T, T) fields for error_map.npz
+    work: dict[str, np.ndarray] = field(default_factory=dict)    # the same on the working grid (D, D)
+    figures: dict = field(default_factory=dict)                  # scalars for the summary / report
+
+    def summary_fields(self) -> dict:
+        """The `verdict`, `reasons` and `areas` entries of summary.json."""
+        return {"verdict": self.verdict, "reasons": list(self.reasons),
+                "areas": {k: round(float(v), 6) for k, v in self.areas.items()}}
+
+
+def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, texture_lin: np.ndarray,
+             cfg: DiagnoseConfig | None = None, *, corrections: dict | None = None,
+             history: dict | list | None = None, texture_footprint_ratio: float | None = None) -> Diagnosis:
+    """Diagnose a fitted (or baked) texture on its scan.
+
+    texels: the texture's TexelBuffer (T x T); texture_lin: (T', T', 3) float32 linear albedo (any
+    size; normally T); corrections: arrays of fit/corrections.npz (None: judge without them);
+    history: fit/history.json (None: unknown); texture_footprint_ratio: texel edge / median photo
+    pixel footprint (None: computed here).
+    """
+    cfg = cfg or DiagnoseConfig()
+    T = texels.size
+    ratio = texture_footprint_ratio
+    if ratio is None or not (ratio > 0 and math.isfinite(ratio)):
+        ratio = footprint_ratio(scene, gbuffers, texture_lin.shape[0])
+    D = working_size(texture_lin.shape[0], ratio, cfg.min_grid, cfg.max_grid)
+    grid = texels if D == T else rasterise_uv(scene.mesh, D)
+    size = scene.mesh.extent
+    cell = texel_edge(scene.mesh, D)
+    corr = parse_corrections(corrections, scene)
+
+    obs = observe(scene, gbuffers, grid, cell, corr, cfg)
+    work = evidence(obs, grid, texture_lin, size, cfg)
+    half = cfg.sweep_units if cfg.sweep_units > 0 else cfg.sweep_fraction * size
+    geo_tol = cfg.geometry_tol_units if cfg.geometry_tol_units > 0 else cfg.geometry_tol_fraction * size
+    fix_tol = cfg.fix_displacement_units if cfg.fix_displacement_units > 0 else cfg.fix_displacement_fraction * size
+
+    valid = grid.valid
+    known = valid & (work["coverage"] >= cfg.min_views)
+    progress = fit_progress(history, cfg.tail)
+    weight, why = underfit_weight(progress, ratio, cfg)
+    geometry = C.geometry_field(work["sweep_offset"], work.get("align_misplacement"), geo_tol, known)
+    texture = C.texture_field(work["residual"], work["agreement"], cfg.texture_tol, weight, known)
+    cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views, min_region=cfg.min_region)
+    area = texel_areas(scene.mesh, grid)
+    areas = C.area_fractions(cls, area)
+
+    displacement = work["sweep_offset"].copy()
+    magnitude = np.fmax(np.abs(displacement), work.get("align_misplacement", np.full_like(displacement, np.nan)))
+    pos = grid.position.astype(np.float64)
+    top = cfg.regions_reported
+    ev = Evidence(
+        areas=areas,
+        geometry_regions=C.regions(cls == C.GEOMETRY, area, pos, displacement, magnitude, top),
+        uncovered_regions=C.regions(cls == C.UNCOVERED, area, pos, displacement, magnitude, 1),
+        texture_regions=C.regions(cls == C.TEXTURE, area, pos, displacement, magnitude, top),
+        geometry_misplacement=geometry_p90(magnitude[cls == C.GEOMETRY]),
+        texture_residual=float(np.nanmedian(work["residual"][cls == C.TEXTURE])) if (cls == C.TEXTURE).any() else 0.0,
+        footprint_ratio=float(ratio), progress=progress, underfit_why=why,
+        global_shift_px=float(work.get("global_shift_px", 0.0)),
+        global_shift_units=float(work.get("global_shift_units", 0.0)),
+        used_alignment="align_misplacement" in work, views=len(obs))
+    verdict = decide(ev, cfg, fix_tol)
+    words = reasons(verdict, ev, cfg, fix_tol, scene.manifest.unit, scene.manifest.unit_m)
+
+    work.update(geometry=geometry, texture=texture, cls=cls, valid=valid)
+    up = lambda a, mode="mean": resample_to(a, valid, texels.valid, mode=mode)  # noqa: E731
+    cls_t = up(cls.astype(np.float32), "max")
+    cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
+    extra = {k: up(work[k]) for k in ("consistency", "consistency_aligned", "residual", "align_misplacement",
+                                      "align_offset", "sweep_gain") if k in work}
+    figures = {"working_grid": D, "texture_size": T, "footprint_ratio": float(ratio), "views": len(obs),
+               "sweep_half_range": float(half), "geometry_tol": float(geo_tol), "fix_tol": float(fix_tol),
+               "geometry_misplacement_p90": ev.geometry_misplacement, "fit_tail_drop": progress.tail_drop,
+               "global_shift_px": ev.global_shift_px, "used_alignment": ev.used_alignment}
+    return Diagnosis(geometry=up(geometry), texture=up(texture), coverage=up(work["coverage"]),
+                     displacement=up(displacement), cls=cls_t, areas=areas, verdict=verdict, reasons=words,
+                     extra=extra, work=work, figures=figures)
+
+
+def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray, size: float,
+             cfg: DiagnoseConfig) -> dict[str, np.ndarray]:
+    """Every per-texel signal on the working grid, as (D, D) float32 arrays (NaN where unknown)."""
+    D = grid.size
+    N = D * D
+    pos = grid.position.reshape(-1, 3).astype(np.float64)
+    nrm = grid.normal.reshape(-1, 3).astype(np.float64)
+    cov = np.zeros(N, np.float32)
+    for o in obs:
+        cov[o.seen] += 1.0
+    out: dict[str, np.ndarray] = {"coverage": np.where(grid.valid, cov.reshape(D, D), np.nan).astype(np.float32)}
+    shape = lambda a: np.asarray(a, np.float32).reshape(D, D)  # noqa: E731
+    if not obs:
+        nan = np.full((D, D), np.nan, np.float32)
+        out.update(sweep_offset=nan, residual=nan, agreement=nan, consistency=nan)
+        return out
+
+    half = cfg.sweep_units if cfg.sweep_units > 0 else cfg.sweep_fraction * size
+    sw = sweep(obs, pos, nrm, D, half, cfg)
+    out.update(sweep_offset=shape(sw.displacement), sweep_gain=shape(sw.gain), consistency=shape(sw.score0))
+
+    al = alignment_evidence(obs, pos, nrm, N, remove_global=cfg.align_remove_global, ridge=0.1)
+    aligned_xy = {}
+    if al is not None:
+        out.update(align_misplacement=shape(al.misplacement), align_offset=shape(al.offset))
+        shifts = np.array(list(al.global_px.values()))
+        out["global_shift_px"] = np.float32(np.median(shifts))
+        fp = np.median(np.concatenate([o.depth / o.focal for o in obs]))
+        out["global_shift_units"] = np.float32(np.median(shifts) * fp)
+        aligned_xy = aligned_positions(obs)
+        views = [Samples(o.idx, o.sample_grey(aligned_xy[o.view.name]), o.cos) for o in obs]
+        s, _ = loo_ncc(views, D, patch=cfg.patch, min_fill=cfg.min_patch_fill, min_contrast=cfg.min_contrast)
+        out["consistency_aligned"] = shape(s)
+
+    # consensus of the (aligned, colour-corrected) photos against the texture, in sRGB
+    views = [Samples(o.idx, linear_to_srgb(o.sample_colour(aligned_xy.get(o.view.name, o.xy))), o.cos)
+             for o in obs]
+    mean, var, w = consensus(views, N)
+    seen = (w > 0).reshape(D, D) & grid.valid
+    tex = linear_to_srgb(texture_at(texture_lin, D)).reshape(D, D, 3)
+    res = consistent_residual(np.nan_to_num(mean).reshape(D, D, 3), tex, np.nan_to_num(var).reshape(D, D),
+                              seen, cfg.patch)
+    out.update(residual=res.residual, agreement=res.agreement, spread=res.spread)
+    return out
+
+
+def aligned_positions(obs: list[Observation]) -> dict[str, np.ndarray]:
+    """Per view, pixel coords where the fit's alignment says each texel really shows: xy + d(xy)."""
+    out = {}
+    for o in obs:
+        f = o.correction.field if o.correction is not None else None
+        if f is None:
+            out[o.view.name] = o.xy
+        else:
+            cam = o.view.camera
+            out[o.view.name] = o.xy + field_at(f, o.xy, cam.width, cam.height)
+    return out
+
+
+def texture_at(texture_lin: np.ndarray, D: int) -> np.ndarray:
+    """(D*D, 3) float32 the texture seen at the working grid's texel centres: block means when the
+    texture is finer (so both hold detail at the same scale), bilinear lookups otherwise."""
+    T = texture_lin.shape[0]
+    if T > D and T % D == 0:
+        k = T // D
+        return texture_lin.reshape(D, k, D, k, 3).mean(axis=(1, 3)).reshape(-1, 3).astype(np.float32)
+    return sample_texture(texture_lin, texel_uv(D).reshape(-1, 2))
+

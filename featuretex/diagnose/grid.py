@@ -1,0 +1,92 @@
+"""The diagnosis's own UV grid (about one photo pixel per texel, capped for speed), texel surface
+areas, and resampling of its fields to the texture's resolution."""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+from scipy import ndimage
+
+from featuretex.bake.texel_size import median_pixel_footprint
+from featuretex.raster.gbuffer import GBuffer
+from featuretex.raster.uvspace import TexelBuffer
+from featuretex.scene.loaded import Scene
+from featuretex.scene.mesh import SceneMesh
+
+
+def surface_per_uv(mesh: SceneMesh) -> np.ndarray:
+    """(F,) float64: 3D area / UV area of each face (scene units^2 per unit of UV area); 0 if degenerate."""
+    tri = mesh.vertices[mesh.faces]
+    a3 = 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1)
+    uvt = mesh.uv[mesh.faces]
+    e1, e2 = uvt[:, 1] - uvt[:, 0], uvt[:, 2] - uvt[:, 0]
+    auv = 0.5 * np.abs(e1[:, 0] * e2[:, 1] - e1[:, 1] * e2[:, 0])
+    return np.where(auv > 1e-20, a3 / np.maximum(auv, 1e-20), 0.0)
+
+
+def texel_areas(mesh: SceneMesh, texels: TexelBuffer) -> np.ndarray:
+    """(T, T) float64 surface area each texel stands for, scene units^2 (0 off the surface)."""
+    ratio = surface_per_uv(mesh)
+    out = np.zeros(texels.tri.shape, np.float64)
+    v = texels.valid
+    out[v] = ratio[texels.tri[v]] / texels.size ** 2
+    return out
+
+
+def texel_edge(mesh: SceneMesh, size: int) -> float:
+    """Mean edge of a texel on the surface for a `size` x `size` texture, scene units."""
+    ratio = surface_per_uv(mesh)
+    uvt = mesh.uv[mesh.faces]
+    e1, e2 = uvt[:, 1] - uvt[:, 0], uvt[:, 2] - uvt[:, 0]
+    auv = 0.5 * np.abs(e1[:, 0] * e2[:, 1] - e1[:, 1] * e2[:, 0])
+    a3, au = float((ratio * auv).sum()), float(auv.sum())
+    return math.sqrt(a3 / au) / size if au > 0 else float("nan")
+
+
+def footprint_ratio(scene: Scene, gbuffers: dict[str, GBuffer], size: int) -> float:
+    """Texel edge of a `size` texture over the median photo pixel footprint (> 1: texture coarser)."""
+    return texel_edge(scene.mesh, size) / median_pixel_footprint(scene, gbuffers)
+
+
+def working_size(texture_size: int, ratio: float, lo: int, hi: int) -> int:
+    """Power of two near one photo pixel per texel (texture_size * ratio), within [lo, hi]."""
+    want = texture_size * ratio if ratio > 0 and math.isfinite(ratio) else texture_size
+    return int(min(max(2 ** round(math.log2(max(want, 1.0))), lo), hi))
+
+
+def resample_to(field: np.ndarray, valid_src: np.ndarray, valid_dst: np.ndarray, *,
+                mode: str = "mean") -> np.ndarray:
+    """Resample a (D, D[, C]) field known on `valid_src` to the (T, T) grid of `valid_dst`.
+
+    Both grids cover the same UV square. T divides D: masked mean ('mean') or max ('max') over
+    each block of D/T texels; otherwise each texel takes the source cell holding its centre.
+    Destination surface texels whose source cells are all off the surface (island rims) copy the
+    nearest one that is on it (distance transform); unknown values stay NaN.
+    """
+    D, T = field.shape[0], valid_dst.shape[0]
+    f = np.where(_bcast(valid_src, field) & np.isfinite(field), field, np.nan).astype(np.float64)
+    if T < D and D % T == 0:
+        k = D // T
+        blocks = f.reshape(T, k, T, k, *f.shape[2:])
+        with warnings.catch_warnings():          # blocks without a value give NaN, silently
+            warnings.simplefilter("ignore", RuntimeWarning)
+            out = np.nanmax(blocks, axis=(1, 3)) if mode == "max" else np.nanmean(blocks, axis=(1, 3))
+        have = valid_src.reshape(T, k, T, k).any(axis=(1, 3))
+    else:
+        cell = ((np.arange(T) + 0.5) * D / T).astype(np.int64)   # the source cell holding each centre
+        out = f[cell][:, cell]
+        have = valid_src[cell][:, cell]
+    # texels on the surface here but off it on the source grid (island rims): nearest source texel
+    need = valid_dst & ~have
+    if need.any() and have.any():
+        _, (ri, ci) = ndimage.distance_transform_edt(~have, return_indices=True)
+        out[need] = out[ri[need], ci[need]]
+    out[~valid_dst] = np.nan
+    return out.astype(np.float32)
+
+
+def _bcast(mask: np.ndarray, like: np.ndarray) -> np.ndarray:
+    return mask.reshape(mask.shape + (1,) * (like.ndim - mask.ndim))
+
