@@ -87,6 +87,7 @@ def main(argv: list[str] | None = None) -> int:
         "bake_gap_db": round(out["bake_gap_db"], 3),
         "seam_ratio": round(seams["ratio"], 3) if seams["ratio"] is not None else None,
         "seam_ratio_baseline": round(seams_base["ratio"], 3) if seams_base["ratio"] is not None else None,
+        "seam_ratio_photo": round(seams["photo_ratio"], 3) if seams.get("photo_ratio") is not None else None,
         "seam_pairs": seams["seam_pairs"],
     }
     res["targets_met"] = {

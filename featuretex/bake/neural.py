@@ -216,7 +216,8 @@ def score_bake(scene: Scene, gbuffers: dict[str, GBuffer], texture_lin: np.ndarr
 
     texture_lin: (T, T, 3) linear. neural: the `score_method` result of the neural render (for the
     gap). Returns {"baked": score_method(...) incl. per_view, "bake_gap_db": neural - baked in
-    alignment-tolerant PSNR (None without neural scores), "seams": seam_ratio(...) at held-out views}.
+    alignment-tolerant PSNR (None without neural scores), "seams": seam_ratio(...) at held-out views,
+    with the photos' own ratio as the reference level}.
     """
     from featuretex.bake.seams import seam_ratio
     from featuretex.render import render_texture
@@ -229,5 +230,6 @@ def score_bake(scene: Scene, gbuffers: dict[str, GBuffer], texture_lin: np.ndarr
     if neural is not None and neural.get("psnr_tolerant") is not None and baked["psnr_tolerant"] is not None:
         gap = float(neural["psnr_tolerant"] - baked["psnr_tolerant"])
     masks = {v.name: score_mask(scene, v, gbuffers[v.name]) for v in held}
-    seams = seam_ratio(scene.mesh, gbuffers, renders, held, masks, seed=seed)
+    photos = {v.name: scene.photo(v) for v in held}
+    seams = seam_ratio(scene.mesh, gbuffers, renders, held, masks, seed=seed, photos=photos)
     return {"baked": baked, "bake_gap_db": gap, "seams": seams}

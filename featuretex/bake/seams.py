@@ -79,27 +79,41 @@ def neighbour_pairs(gbuf: GBuffer, mesh: SceneMesh, view: View, mask: np.ndarray
     return np.concatenate(seams), np.concatenate(inner)
 
 
-def seam_stats(render_lin: np.ndarray, gbuf: GBuffer, mesh: SceneMesh, view: View, mask: np.ndarray,
-               rng: np.random.Generator, interior_samples: int = INTERIOR_SAMPLES
-               ) -> SeamStats:
-    """Sums of one view. render_lin: (H, W, 3) linear render; mask: (H, W) bool pixels to judge."""
+def seam_stats(images_lin: list[np.ndarray], gbuf: GBuffer, mesh: SceneMesh, view: View, mask: np.ndarray,
+               rng: np.random.Generator, interior_samples: int = INTERIOR_SAMPLES) -> list[SeamStats]:
+    """Sums of one view for each image (H, W, 3) linear, over the same pairs; mask: (H, W) bool."""
     seams, inner = neighbour_pairs(gbuf, mesh, view, np.asarray(mask, bool))
     if len(inner) > interior_samples:
         inner = inner[np.sort(rng.choice(len(inner), interior_samples, replace=False))]
-    img = linear_to_srgb(render_lin).reshape(-1, render_lin.shape[-1]).astype(np.float64)
+    out = []
+    for image in images_lin:
+        img = linear_to_srgb(image).reshape(-1, image.shape[-1]).astype(np.float64)
 
-    def diff_sum(p: np.ndarray) -> float:
-        return float(np.abs(img[p[:, 0]] - img[p[:, 1]]).mean(axis=1).sum()) if len(p) else 0.0
+        def diff_sum(p: np.ndarray) -> float:
+            return float(np.abs(img[p[:, 0]] - img[p[:, 1]]).mean(axis=1).sum()) if len(p) else 0.0
 
-    return SeamStats(diff_sum(seams), len(seams), diff_sum(inner), len(inner))
+        out.append(SeamStats(diff_sum(seams), len(seams), diff_sum(inner), len(inner)))
+    return out
 
 
 def seam_ratio(mesh: SceneMesh, gbuffers: dict[str, GBuffer], renders: dict[str, np.ndarray],
-               views: list[View], masks: dict[str, np.ndarray], seed: int = 0) -> dict:
+               views: list[View], masks: dict[str, np.ndarray], seed: int = 0,
+               photos: dict[str, np.ndarray] | None = None) -> dict:
     """Pooled seam measure over `views`: {"ratio", "seam_mad", "interior_mad", "seam_pairs",
-    "interior_pairs"} (ratio None when no seam is in sight). renders: view -> (H, W, 3) linear."""
-    total = SeamStats()
+    "interior_pairs"} (ratio None when no seam is in sight). renders: view -> (H, W, 3) linear.
+
+    With photos (view -> (H, W, 3) linear), also "photo_ratio": the same measure on the photos over
+    the same pairs, the level the photographed content itself shows (chart borders often follow
+    creases, where real shading changes).
+    """
+    total, ref = SeamStats(), SeamStats()
     for k, view in enumerate(views):
-        rng = np.random.default_rng([seed, k])
-        total += seam_stats(renders[view.name], gbuffers[view.name], mesh, view, masks[view.name], rng)
-    return total.as_dict()
+        images = [renders[view.name]] + ([photos[view.name]] if photos is not None else [])
+        st = seam_stats(images, gbuffers[view.name], mesh, view, masks[view.name], np.random.default_rng([seed, k]))
+        total += st[0]
+        if photos is not None:
+            ref += st[1]
+    out = total.as_dict()
+    if photos is not None:
+        out["photo_ratio"] = ref.as_dict()["ratio"]
+    return out
