@@ -23,6 +23,7 @@ def atomic_path(target: str | Path, suffix: str | None = None) -> Iterator[Path]
                                dir=target.parent)
     os.close(fd)
     tmp_path = Path(tmp)
+    os.chmod(tmp_path, 0o666 & ~_umask())  # mkstemp makes 0600; outputs get the usual permissions
     try:
         yield tmp_path
         with open(tmp_path, "rb+") as f:
@@ -31,6 +32,12 @@ def atomic_path(target: str | Path, suffix: str | None = None) -> Iterator[Path]
     finally:
         if tmp_path.exists():
             tmp_path.unlink()
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def write_bytes(target: str | Path, data: bytes) -> None:
