@@ -448,7 +448,7 @@ def write_mesh_obj(path: Path, mesh: trimesh.Trimesh) -> None:
 
     has_uv = getattr(mesh.visual, "uv", None) is not None
     text = export_obj(mesh, include_normals=False, include_color=False, include_texture=has_uv,
-                      header=None, digits=9)
+                      header=None, digits=7)
     if not isinstance(text, str):
         text = text[0]
     text = "\n".join(ln for ln in text.splitlines() if not ln.startswith(("mtllib", "usemtl"))) + "\n"
