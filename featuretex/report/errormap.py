@@ -1,0 +1,187 @@
+"""The report's picture of the diagnosis: error_map.npz painted with the diagnosis's own palette
+(the same colours as error_map.png and diagnosis.ply), and its largest problem regions found,
+ranked and outlined.
+
+Classes come from the npz's `cls` field (featuretex.diagnose.classify). An npz without it is
+classified here by the diagnosis's rule: uncovered if coverage < min_views, else geometry if
+geometry >= 0.5, else texture if texture >= 0.5, else fine.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from PIL import Image, ImageDraw, ImageFont
+from scipy import ndimage
+
+from featuretex.diagnose.classify import FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED
+from featuretex.diagnose.palette import COLOURS, LABELS, paint
+
+KINDS = {GEOMETRY: "geometry", TEXTURE: "texture", UNCOVERED: "uncovered"}
+# class -> what it asks of the person reading the report (the labels are the diagnosis's own)
+MEANING = {GEOMETRY: "the photos disagree with the mesh here: fix the shape (or the camera poses)",
+           TEXTURE: "the shape holds; a longer fit or a larger texture would sharpen it",
+           UNCOVERED: "too few usable photos saw it: rescan it if it matters",
+           FINE: "photos and model agree",
+           OFF: "texture space the mesh does not use"}
+LEGEND_ORDER = (GEOMETRY, TEXTURE, UNCOVERED, FINE, OFF)
+
+
+@dataclass(frozen=True)
+class Region:
+    """One connected problem region in texel space (row 0 = top of the texture image)."""
+
+    kind: str                 # "geometry" | "texture" | "uncovered"
+    share: float              # fraction of the surface area, 0..1
+    area: float | None        # scene units^2, when texel areas are known
+    score: float              # mean of the class's field over the region, 0..1 (NaN for uncovered)
+    box: tuple[int, int, int, int]   # (row0, col0, row1, col1), inclusive-exclusive, texels
+    uv: tuple[float, float]   # (u, v) of the box centre, v up
+    centre: tuple[float, float, float] | None   # area-weighted mean position, scene units
+    offset: float             # median displacement along the normal inside, scene units (NaN: none)
+    mask: np.ndarray = field(repr=False, compare=False, default=None)   # (r1-r0, c1-c0) bool inside the box
+
+
+@dataclass
+class ErrorFields:
+    """error_map.npz on its T x T texel grid, with where the surface is and what each texel weighs."""
+
+    cls: np.ndarray           # (T, T) uint8 class (featuretex.diagnose.classify)
+    geometry: np.ndarray      # (T, T) float32 0..1, NaN unknown
+    texture: np.ndarray       # (T, T) float32 0..1, NaN unknown
+    displacement: np.ndarray  # (T, T) float32 scene units, NaN unknown
+    weight: np.ndarray        # (T, T) float64 surface area per texel (scene units^2), or 1 per surface texel
+    position: np.ndarray | None   # (T, T, 3) float32 surface point per texel, scene units
+    area_known: bool
+
+
+@dataclass
+class Layout:
+    """The exported model's UV layout sampled at T x T texel centres."""
+
+    surface: np.ndarray       # (T, T) bool
+    area: np.ndarray          # (T, T) float64 scene units^2 per texel (0 off the surface)
+    position: np.ndarray      # (T, T, 3) float32 scene units
+
+
+def layout_from_model(glb: Path, size: int) -> Layout:
+    """Texel centres inside a UV triangle of model.glb, each standing for (3D area / UV area of its
+    triangle) / T^2, and the surface point it maps to."""
+    from featuretex.diagnose.grid import texel_areas
+    from featuretex.raster.uvspace import rasterise_uv
+    from featuretex.scene.mesh import load_mesh
+
+    mesh = load_mesh(glb, str(glb))
+    texels = rasterise_uv(mesh, size)
+    return Layout(texels.valid, texel_areas(mesh, texels), texels.position)
+
+
+def classify(coverage: np.ndarray, geometry: np.ndarray, texture: np.ndarray, surface: np.ndarray,
+             min_views: int = 2) -> np.ndarray:
+    """(T, T) uint8 classes by the diagnosis's rule (for an npz without `cls`)."""
+    cls = np.where(surface, FINE, OFF).astype(np.uint8)
+    known = surface & (np.nan_to_num(coverage) >= min_views)
+    geo = known & (np.nan_to_num(geometry) >= 0.5)
+    cls[known & ~geo & (np.nan_to_num(texture) >= 0.5)] = TEXTURE
+    cls[geo] = GEOMETRY
+    cls[surface & ~known] = UNCOVERED
+    return cls
+
+
+def load_fields(npz: Path, layout: Layout | None = None, min_views: int = 2) -> ErrorFields:
+    """Read error_map.npz; `layout` (same T) supplies texel areas and positions."""
+    with np.load(npz) as z:
+        geo = np.asarray(z["geometry"], np.float32)
+        tex = np.asarray(z["texture"], np.float32)
+        cov = np.asarray(z["coverage"], np.float32)
+        disp = np.asarray(z["displacement"], np.float32) if "displacement" in z.files else np.full(geo.shape, np.nan)
+        cls = np.asarray(z["cls"], np.uint8) if "cls" in z.files else None
+    lay = layout if layout is not None and layout.surface.shape == geo.shape else None
+    if cls is None:
+        surface = lay.surface if lay is not None else np.ones(geo.shape, bool)
+        cls = classify(cov, geo, tex, surface, min_views)
+    on = cls != OFF
+    weight = np.where(on, lay.area, 0.0) if lay is not None else on.astype(np.float64)
+    return ErrorFields(cls, geo, tex, disp, weight, lay.position if lay is not None else None, lay is not None)
+
+
+def find_regions(f: ErrorFields, *, top: int = 5, min_share: float = 0.001) -> list[Region]:
+    """The `top` largest 8-connected regions of each problem class covering >= min_share of the
+    surface, largest first over all classes."""
+    total = float(f.weight.sum()) or 1.0
+    T = f.cls.shape[0]
+    found: list[Region] = []
+    for code, kind in KINDS.items():
+        labels, n = ndimage.label(f.cls == code, structure=np.ones((3, 3), bool))
+        if n == 0:
+            continue
+        field = {GEOMETRY: f.geometry, TEXTURE: f.texture}.get(code)
+        for k, sl in enumerate(ndimage.find_objects(labels), 1):
+            m = labels[sl] == k
+            w = f.weight[sl][m]
+            share = float(w.sum()) / total
+            if share < min_share:
+                continue
+            score = float(np.nanmean(field[sl][m])) if field is not None and np.isfinite(field[sl][m]).any() \
+                else float("nan")
+            d = f.displacement[sl][m]
+            d = d[np.isfinite(d)]
+            centre = None
+            if f.position is not None and w.sum() > 0:
+                centre = tuple(float(c) for c in (f.position[sl][m] * w[:, None]).sum(0) / w.sum())
+            r0, r1, c0, c1 = sl[0].start, sl[0].stop, sl[1].start, sl[1].stop
+            found.append(Region(kind, share, float(w.sum()) if f.area_known else None, score, (r0, c0, r1, c1),
+                                ((c0 + c1) / 2 / T, 1.0 - (r0 + r1) / 2 / T), centre,  # type: ignore[arg-type]
+                                float(np.median(d)) if len(d) else float("nan"), m))
+    found.sort(key=lambda r: -r.share)
+    return found[:top]
+
+
+def painted(f: ErrorFields) -> np.ndarray:
+    """(T, T, 3) uint8 sRGB map in the diagnosis's palette."""
+    return paint(f.cls, f.geometry, f.texture)
+
+
+def _font(size: int) -> ImageFont.ImageFont:
+    try:
+        return ImageFont.load_default(size=size)
+    except TypeError:               # Pillow without FreeType: the fixed bitmap font
+        return ImageFont.load_default()
+
+
+def label_point(mask: np.ndarray) -> tuple[float, float]:
+    """(row, col) texel centre of `mask` farthest from its edge: a label there sits inside the
+    region even when the region is a ring or a crescent."""
+    dist = ndimage.distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1]
+    r, c = np.unravel_index(int(np.argmax(dist)), mask.shape)
+    return r + 0.5, c + 0.5
+
+
+def outline_regions(image: np.ndarray, regions: list[Region], texels: int, display: int = 768) -> Image.Image:
+    """The painted map scaled to `display` px (nearest: texels stay sharp) with each region's
+    contour drawn and its number 1.. (order given) placed inside it."""
+    k = max(1, -(-display // texels))
+    big = np.repeat(np.repeat(image, k, axis=0), k, axis=1)
+    for r in regions:
+        r0, c0, r1, c1 = r.box
+        full = np.zeros((texels, texels), bool)
+        full[r0:r1, c0:c1] = r.mask
+        m = np.repeat(np.repeat(full, k, axis=0), k, axis=1)
+        inner = m & ~ndimage.binary_erosion(m, iterations=2)          # 2 px inside the edge
+        outer = ndimage.binary_dilation(m, iterations=2) & ~m           # 2 px outside it
+        big[outer] = (16, 16, 16)
+        big[inner] = (255, 230, 60)
+    im = Image.fromarray(big).resize((display, display), Image.NEAREST)
+    draw = ImageDraw.Draw(im)
+    s = display / texels
+    font = _font(max(15, display // 34))
+    for i, r in enumerate(regions, 1):
+        pr, pc = label_point(r.mask)
+        x, y = (r.box[1] + pc) * s, (r.box[0] + pr) * s
+        tb = draw.textbbox((x, y), str(i), font=font, anchor="mm")
+        rad = max(tb[2] - tb[0], tb[3] - tb[1]) / 2 + 5
+        draw.ellipse((x - rad, y - rad, x + rad, y + rad), fill=(16, 16, 16), outline=(255, 230, 60), width=2)
+        draw.text((x, y), str(i), font=font, fill=(255, 230, 60), anchor="mm")
+    return im

@@ -1,0 +1,130 @@
+"""Turntable preview of the exported model: frames rendered with pyrender (headless EGL, unlit, as a
+glTF viewer shows KHR_materials_unlit) and an animated PNG of them.
+
+The camera orbits the model's bounding-box centre about `up` at a fixed elevation and distance, so
+the whole bounding sphere stays in view. Camera poses follow pyrender/OpenGL: camera looks down
+its -z axis, +y up.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import trimesh
+from PIL import Image
+
+from featuretex.atomic import atomic_path
+
+os.environ.setdefault("PYOPENGL_PLATFORM", "egl")
+
+
+@dataclass(frozen=True)
+class Orbit:
+    """Where the turntable camera is for each frame."""
+
+    poses: list[np.ndarray]   # per frame (4, 4) float64 camera-to-world, OpenGL camera axes
+    yfov: float               # vertical field of view, radians
+    znear: float              # scene units
+    zfar: float
+
+
+def _unit(v: np.ndarray) -> np.ndarray:
+    return v / max(float(np.linalg.norm(v)), 1e-12)
+
+
+def orbit(bounds: np.ndarray, up: np.ndarray, frames: int, *, elevation_deg: float = 20.0,
+          yfov_deg: float = 30.0, front: np.ndarray | None = None, margin: float = 1.08) -> Orbit:
+    """Camera poses circling a (2, 3) bounding box (scene units) about `up`.
+
+    `front`: world direction from the object to the first frame's camera (projected onto the
+    horizontal plane); any horizontal direction when None.
+    """
+    up = _unit(np.asarray(up, np.float64))
+    centre = bounds.mean(axis=0)
+    radius = 0.5 * float(np.linalg.norm(bounds[1] - bounds[0])) or 1.0
+    yfov = math.radians(yfov_deg)
+    dist = margin * radius / math.sin(yfov / 2)
+    f = np.asarray(front, np.float64) if front is not None else np.array([1.0, 0.0, 0.0])
+    h = f - up * (f @ up)
+    if np.linalg.norm(h) < 1e-6:                       # front is along up: take any perpendicular
+        h = np.cross(up, [1.0, 0.0, 0.0] if abs(up[0]) < 0.9 else [0.0, 1.0, 0.0])
+    h = _unit(h)
+    side = np.cross(up, h)
+    el = math.radians(elevation_deg)
+    poses = []
+    for k in range(frames):
+        a = 2 * math.pi * k / frames
+        back = _unit(math.cos(el) * (math.cos(a) * h + math.sin(a) * side) + math.sin(el) * up)  # +z of camera
+        right = _unit(np.cross(up, back))
+        cam_up = np.cross(back, right)
+        pose = np.eye(4)
+        pose[:3, 0], pose[:3, 1], pose[:3, 2] = right, cam_up, back
+        pose[:3, 3] = centre + dist * back
+        poses.append(pose)
+    return Orbit(poses, yfov, max(dist - radius * 1.5, dist * 1e-3), dist + radius * 1.5)
+
+
+def up_and_front(world_to_camera: list[np.ndarray], centre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """World up and front directions guessed from the photo cameras (OpenCV axes, +y down):
+    photographers hold cameras roughly upright, so up = -(mean camera +y); front = from `centre`
+    towards the first camera."""
+    R = np.stack([np.asarray(m, np.float64)[:3, :3] for m in world_to_camera])
+    up = _unit(-R[:, 1, :].mean(axis=0))
+    m0 = np.asarray(world_to_camera[0], np.float64)
+    eye = -m0[:3, :3].T @ m0[:3, 3]
+    return up, _unit(eye - centre)
+
+
+def load_model(glb: Path) -> trimesh.Scene:
+    return trimesh.load(str(glb), force="scene")
+
+
+def render_frames(model: trimesh.Scene, cams: Orbit, size: int) -> list[np.ndarray]:
+    """Per pose an (size, size, 4) uint8 RGBA frame: the base-colour texture as stored (sRGB bytes,
+    unlit), transparent background."""
+    import pyrender
+
+    scene = pyrender.Scene(bg_color=[0.0, 0.0, 0.0, 0.0], ambient_light=[1.0, 1.0, 1.0])
+    for node_name in model.graph.nodes_geometry:
+        transform, geom_name = model.graph[node_name]
+        scene.add(pyrender.Mesh.from_trimesh(model.geometry[geom_name], smooth=False), pose=transform)
+    camera = pyrender.PerspectiveCamera(yfov=cams.yfov, aspectRatio=1.0, znear=cams.znear, zfar=cams.zfar)
+    cam_node = scene.add(camera, pose=cams.poses[0])
+    renderer = pyrender.OffscreenRenderer(size, size)
+    flags = pyrender.RenderFlags.FLAT | pyrender.RenderFlags.RGBA
+    frames = []
+    try:
+        for pose in cams.poses:
+            scene.set_pose(cam_node, pose)
+            colour, _ = renderer.render(scene, flags=flags)
+            frames.append(np.asarray(colour, np.uint8).copy())
+    finally:
+        renderer.delete()
+    return frames
+
+
+def write_animation(path: Path, frames: list[np.ndarray], seconds_per_turn: float = 4.0) -> Path:
+    """Animated PNG (loops forever) of RGBA frames, written atomically."""
+    ims = [Image.fromarray(f, "RGBA") for f in frames]
+    ms = max(20, round(1000 * seconds_per_turn / max(len(ims), 1)))
+    with atomic_path(path) as tmp:
+        ims[0].save(tmp, format="PNG", save_all=True, append_images=ims[1:], duration=ms, loop=0,
+                    disposal=1, blend=0)
+    return path
+
+
+def turntable(glb: Path, out: Path, *, frames: int = 36, size: int = 360,
+              cameras: list[np.ndarray] | None = None) -> list[np.ndarray]:
+    """Render `frames` views of `glb`, write them to `out` as an animated PNG and return them (each
+    (size, size, 4) uint8 RGBA). Upright and front come from the photo `cameras` ((4, 4)
+    world_to_camera each) when given, else glTF's +Y is up."""
+    model = load_model(glb)
+    bounds = np.asarray(model.bounds, np.float64)
+    up, front = (np.array([0.0, 1.0, 0.0]), None) if not cameras else up_and_front(cameras, bounds.mean(axis=0))
+    shots = render_frames(model, orbit(bounds, up, frames, front=front), size)
+    write_animation(out, shots)
+    return shots
