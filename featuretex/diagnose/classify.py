@@ -62,12 +62,15 @@ def classify(valid: np.ndarray, coverage: np.ndarray, geometry: np.ndarray, text
     return cls
 
 
-def area_fractions(cls: np.ndarray, area: np.ndarray) -> dict[str, float]:
-    """Surface-area fractions of the classes that matter; area: (D, D) texel areas (0 off surface)."""
+def area_fractions(cls: np.ndarray, area: np.ndarray, hidden: np.ndarray) -> dict[str, float]:
+    """Surface-area fractions of the classes that matter; area: (D, D) texel areas (0 off surface);
+    hidden: (D, D) bool, texels in cavities (reported as `uncovered_hidden`, part of `uncovered`)."""
     total = float(area[cls != OFF].sum())
-    def frac(c: int) -> float:
-        return float(area[cls == c].sum()) / total if total > 0 else 0.0
-    return {"uncovered": frac(UNCOVERED), "geometry_limited": frac(GEOMETRY), "texture_limited": frac(TEXTURE)}
+
+    def frac(m: np.ndarray) -> float:
+        return float(area[m].sum()) / total if total > 0 else 0.0
+    return {"uncovered": frac(cls == UNCOVERED), "geometry_limited": frac(cls == GEOMETRY),
+            "texture_limited": frac(cls == TEXTURE), "uncovered_hidden": frac((cls == UNCOVERED) & hidden)}
 
 
 @dataclass

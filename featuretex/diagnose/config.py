@@ -20,6 +20,9 @@ class DiagnoseConfig:
     depth_tol_px: float = 2.0        # visibility: allowed depth gap, in pixel footprints
     edge_erode_px: int = 2           # drop samples this close to a silhouette
     min_views: int = 2               # 'uncovered' = seen by fewer usable views than this
+    min_exposure: float = 0.25       # uncovered surface open to less of its hemisphere than this is a
+                                     # cavity no outside camera sees well: not counted towards a rescan
+    exposure_rays: int = 32
     # photo-consistency: patch normalised cross-correlation on the UV grid
     patch: int = 5                   # patch edge, texels of the working grid (odd)
     min_patch_fill: float = 0.6      # fraction of a patch that must be seen for its NCC to count
@@ -44,7 +47,7 @@ class DiagnoseConfig:
     footprint_ratio_tol: float = 1.5  # texture texel > this x the photo pixel = a larger texture would help
     settled_texture_weight: float = 0.5  # under-fit evidence weight when neither qualifier holds
     # verdict rules, surface-area fractions
-    rescan_uncovered: float = 0.05   # rescan when more surface than this is uncovered
+    rescan_uncovered: float = 0.05   # rescan when more open (non-cavity) surface than this is uncovered
     rescan_geometry: float = 0.35    # rescan when more than this is geometry-limited (beyond a fix)
     fix_geometry_area: float = 0.003  # fix-geometry when geometry-limited area exceeds this ...
     fix_displacement_fraction: float = 0.004  # ... and its misplacement (90th pct) exceeds this fraction of size

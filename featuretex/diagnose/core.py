@@ -22,6 +22,7 @@ from featuretex.diagnose import classify as C
 from featuretex.diagnose.alignment import alignment_evidence, field_at, parse_corrections
 from featuretex.diagnose.config import DiagnoseConfig
 from featuretex.diagnose.consistency import Samples, consensus, loo_ncc
+from featuretex.diagnose.exposure import exposure
 from featuretex.diagnose.grid import footprint_ratio, resample_to, texel_areas, texel_edge, working_size
 from featuretex.diagnose.observe import Observation, observe
 from featuretex.diagnose.sweep import sweep
@@ -93,7 +94,8 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     texture = C.texture_field(work["residual"], work["agreement"], cfg.texture_tol, weight, known)
     cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views, min_region=cfg.min_region)
     area = texel_areas(scene.mesh, grid)
-    areas = C.area_fractions(cls, area)
+    hidden = cavities(scene, grid, cls == C.UNCOVERED, cfg)
+    areas = C.area_fractions(cls, area, hidden)
 
     displacement = work["sweep_offset"].copy()
     magnitude = np.fmax(np.abs(displacement), work.get("align_misplacement", np.full_like(displacement, np.nan)))
@@ -102,7 +104,7 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     ev = Evidence(
         areas=areas,
         geometry_regions=C.regions(cls == C.GEOMETRY, area, pos, displacement, magnitude, top),
-        uncovered_regions=C.regions(cls == C.UNCOVERED, area, pos, displacement, magnitude, 1),
+        uncovered_regions=C.regions((cls == C.UNCOVERED) & ~hidden, area, pos, displacement, magnitude, 1),
         texture_regions=C.regions(cls == C.TEXTURE, area, pos, displacement, magnitude, top),
         geometry_misplacement=geometry_p90(magnitude[cls == C.GEOMETRY]),
         texture_residual=float(np.nanmedian(work["residual"][cls == C.TEXTURE])) if (cls == C.TEXTURE).any() else 0.0,
@@ -113,7 +115,7 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     verdict = decide(ev, cfg, fix_tol)
     words = reasons(verdict, ev, cfg, fix_tol, scene.manifest.unit, scene.manifest.unit_m)
 
-    work.update(geometry=geometry, texture=texture, cls=cls, valid=valid)
+    work.update(geometry=geometry, texture=texture, cls=cls, valid=valid, hidden=hidden)
     up = lambda a, mode="mean": resample_to(a, valid, texels.valid, mode=mode)  # noqa: E731
     cls_t = up(cls.astype(np.float32), "max")
     cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
@@ -171,6 +173,16 @@ def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray,
     res = consistent_residual(np.nan_to_num(mean).reshape(D, D, 3), tex, np.nan_to_num(var).reshape(D, D),
                               seen, cfg.patch)
     out.update(residual=res.residual, agreement=res.agreement, spread=res.spread)
+    return out
+
+
+def cavities(scene: Scene, grid: TexelBuffer, uncovered: np.ndarray, cfg: DiagnoseConfig) -> np.ndarray:
+    """(D, D) bool: uncovered texels whose exposure is below min_exposure (inside cavities)."""
+    out = np.zeros(uncovered.shape, bool)
+    if uncovered.any():
+        e = exposure(scene.mesh, grid.position[uncovered].astype(np.float64),
+                     grid.normal[uncovered].astype(np.float64), cfg.exposure_rays)
+        out[uncovered] = e < cfg.min_exposure
     return out
 
 

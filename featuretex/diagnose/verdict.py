@@ -1,7 +1,7 @@
 """The verdict for a scan and its reasons in plain words, with numbers and units.
 
 Rules (thresholds in DiagnoseConfig), first match wins:
-  rescan          uncovered surface > rescan_uncovered, or geometry-limited > rescan_geometry
+  rescan          uncovered surface outside cavities > rescan_uncovered, or geometry-limited > rescan_geometry
   fix-geometry    geometry-limited > fix_geometry_area and its misplacement > the fix tolerance
                   (texture fitting cannot repair geometry, so this comes before refine-texture)
   refine-texture  texture-limited > refine_texture_area and >= refine_dominance x geometry-limited
@@ -71,9 +71,14 @@ def pct(x: float) -> str:
     return f"{100 * x:.1f} %"
 
 
+def open_uncovered(areas: dict[str, float]) -> float:
+    """Uncovered surface outside cavities (what more photos could cover)."""
+    return areas["uncovered"] - areas.get("uncovered_hidden", 0.0)
+
+
 def decide(ev: Evidence, cfg: DiagnoseConfig, fix_tol: float) -> str:
     a = ev.areas
-    if a["uncovered"] > cfg.rescan_uncovered or a["geometry_limited"] > cfg.rescan_geometry:
+    if open_uncovered(a) > cfg.rescan_uncovered or a["geometry_limited"] > cfg.rescan_geometry:
         return "rescan"
     if a["geometry_limited"] > cfg.fix_geometry_area and ev.geometry_misplacement > fix_tol:
         return "fix-geometry"
@@ -89,11 +94,16 @@ def reasons(verdict: str, ev: Evidence, cfg: DiagnoseConfig, fix_tol: float, uni
     L = lambda v: length(v, unit, unit_m)  # noqa: E731
     a = ev.areas
     out: list[str] = []
-    if a["uncovered"] > 0 and (verdict == "rescan" or a["uncovered"] > 0.2 * cfg.rescan_uncovered):
+    ou = open_uncovered(a)
+    if ou > 0 and (verdict == "rescan" or ou > 0.2 * cfg.rescan_uncovered):
         r = ev.uncovered_regions[0] if ev.uncovered_regions else None
-        spot = f", mostly {where(r, unit)}" if r is not None else ""
-        out.append(f"{pct(a['uncovered'])} of the surface{spot} was seen by fewer than {cfg.min_views} usable "
-                   f"photos (limit {pct(cfg.rescan_uncovered)}): photograph it before anything else")
+        spot = f", mostly {where(r, unit)}," if r is not None else ""
+        act = "photograph it before anything else" if ou > cfg.rescan_uncovered else "below the rescan limit"
+        out.append(f"{pct(ou)} of the surface{spot} was seen by fewer than {cfg.min_views} usable "
+                   f"photos (rescan limit {pct(cfg.rescan_uncovered)}): {act}")
+    if a.get("uncovered_hidden", 0.0) > 0.001:
+        out.append(f"{pct(a['uncovered_hidden'])} of the surface lies in cavities no outside camera sees well "
+                   f"(open to less than {pct(cfg.min_exposure)} of its hemisphere): not counted towards a rescan")
     if a["geometry_limited"] > 0:
         for r in ev.geometry_regions:
             if r.fraction < 0.2 * cfg.fix_geometry_area:
@@ -126,7 +136,7 @@ def reasons(verdict: str, ev: Evidence, cfg: DiagnoseConfig, fix_tol: float, uni
         out.append(f"{pct(a['texture_limited'])} of the surface shows detail the photos agree on but the texture "
                    f"misses (residual {ev.texture_residual:.3f} sRGB RMS); {tail}")
     if verdict == "ready":
-        out.append(f"the photos agree with the mesh and the texture: {pct(a['uncovered'])} uncovered, "
+        out.append(f"the photos agree with the mesh and the texture: {pct(ou)} uncovered, "
                    f"{pct(a['geometry_limited'])} geometry-limited (limit {pct(cfg.fix_geometry_area)}), "
                    f"{pct(a['texture_limited'])} texture-limited (limit {pct(cfg.refine_texture_area)})")
     if not ev.used_alignment:
