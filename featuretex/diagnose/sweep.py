@@ -94,7 +94,10 @@ def _decide(ts, pooled, score0, cfg, K, N) -> SweepResult:
     step = ts[1] - ts[0]
     best = ts[k] + np.clip(frac, -0.5, 0.5) * step
     gain = best_s - np.where(have, pooled[K // 2], np.nan)
-    confident = have & (k != K // 2) & (gain >= cfg.sweep_min_gain) & (best_s >= cfg.sweep_min_score)
+    # a peak at the end of the range says only "further than this" (often a drift of the score
+    # on texture that repeats): it is not a measured offset
+    confident = (have & (k != K // 2) & (k > 0) & (k < K - 1)
+                 & (gain >= cfg.sweep_min_gain) & (best_s >= cfg.sweep_min_score))
     return SweepResult(offsets=ts, best=np.where(have, best, np.nan).astype(np.float32),
                        gain=np.where(have, gain, np.nan).astype(np.float32),
                        best_score=np.where(have, best_s, np.nan).astype(np.float32),
