@@ -280,7 +280,7 @@ def parse_pose(value: Any, file: str, view: str) -> np.ndarray:
     return out
 
 
-class _StrictLoader(yaml.SafeLoader):
+class _StrictLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # libyaml's parser when present
     """PyYAML's safe loader, refusing a key given twice in one mapping (PyYAML keeps the last silently)."""
 
 
@@ -311,8 +311,8 @@ def _load_yaml(path: Path, file: str) -> Any:
         text = path.read_bytes().decode("utf-8")
         return yaml.load(text, Loader=_StrictLoader)  # noqa: S506 (a SafeLoader subclass)
     except yaml.YAMLError as e:
-        first = " ".join(str(e).split())[:200]
-        raise input_error(file, f"not valid YAML: {first}") from None
+        first = " ".join(str(e).split()).replace('in "<unicode string>", ', "at ")[:200]
+        raise input_error(file, f"not valid YAML: {first}", hint="check indentation, brackets and quotes") from None
     except UnicodeDecodeError:
         raise input_error(file, "not UTF-8 text", hint="save scene.yaml as UTF-8") from None
     except RecursionError:
