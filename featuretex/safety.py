@@ -24,12 +24,17 @@ and refuses, with an InputError naming the file (or "command line") and the key:
   `PYTHON*`), and `hydra.launcher.setup` (shell lines a cluster launcher runs before the job);
 * `pkg://` search paths outside `featuretex` / `hydra_plugins`, and `--experimental-rerun`
   (it loads a pickle, which can run anything).
+
+`check_output_dir(argv)` (also before Hydra, which creates the run folder and writes `.hydra/`
+before any featuretex code runs, and reports a failure there as a traceback) makes sure the
+output folder can be created and written, raising the OSError of the first thing that fails.
 """
 
 from __future__ import annotations
 
 import os
 import re
+import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -236,3 +241,35 @@ def _check_hydra_specials(parts: list[str], value: Any, file: str) -> None:
     if parts == ["hydra", "launcher", "setup"] and value:
         raise input_error(file, "launcher 'setup' lines are shell commands run before the job; refused",
                           field=key, hint="prepare the cluster environment outside featuretex's config")
+
+
+def _out_override(argv: list[str]) -> tuple[str | None, bool]:
+    """(value of `out=` or None, multirun?) from the command line, parsed as Hydra parses it."""
+    from hydra._internal.utils import get_args_parser
+
+    try:
+        args, _ = get_args_parser().parse_known_args(argv)
+    except SystemExit:
+        return None, False
+    out = None
+    for key, value, _ in _overrides(args.overrides or []):
+        if key == "out" and isinstance(value, str):
+            out = value
+    return out, bool(args.multirun)
+
+
+def check_output_dir(argv: list[str]) -> None:
+    """Create the run folder named by `out=` (else Hydra's default parent, runs/ or multirun/) and
+    write and delete a small file in it. Raises OSError (with filename and strerror) on failure."""
+    out, multirun = _out_override(argv)
+    folder = Path(out if out else ("multirun" if multirun else "runs")).expanduser()
+    if "${" in str(folder):       # an interpolation: only Hydra can resolve it
+        return
+    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        with tempfile.NamedTemporaryFile(dir=folder, prefix=".featuretex-probe.") as f:
+            f.write(b"\0" * 4096)
+            f.flush()
+            os.fsync(f.fileno())
+    except OSError as e:
+        raise OSError(e.errno, e.strerror or str(e), str(folder)) from None
