@@ -59,9 +59,10 @@ SPOUT = dict(amp=0.010, sigma=0.35, z0=0.190)
 # foot and underside polyline (r, z), from the axis outwards, ending where the wall starts
 FOOT = [(0.0, 0.0025), (0.034, 0.0025), (0.036, 0.0), (0.041, 0.0), (0.0425, 0.0015), (0.0425, 0.005),
         (0.0405, 0.0075), (WALL_R[0], WALL_Z[0])]
-# handle centre line in the x-z plane (y = 0); both ends sink a few mm into the wall
-HANDLE_PTS = np.array([(-0.031, 0.190), (-0.045, 0.196), (-0.068, 0.194), (-0.088, 0.178), (-0.098, 0.150),
-                       (-0.096, 0.118), (-0.086, 0.088), (-0.072, 0.068), (-0.059, 0.059)])
+# handle centre line in the x-z plane (y = 0); both ends run radially 3 mm into the 6 mm wall, so the
+# closed ends stay buried between its outer and inner surfaces
+HANDLE_PTS = np.array([(-0.033, 0.190), (-0.048, 0.193), (-0.070, 0.190), (-0.089, 0.174), (-0.098, 0.148),
+                       (-0.096, 0.116), (-0.087, 0.088), (-0.074, 0.066), (-0.058, 0.059)])
 HANDLE_HALF = (0.007, 0.0045)   # half width (along y), half thickness (in the x-z plane)
 
 # parts of the profile, for painting and for the defects
@@ -264,7 +265,8 @@ def revolve(rz: np.ndarray, v_prof: np.ndarray, n_theta: int, phase: float = 0.0
 def handle_frame(n_along: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Centre line of the handle: points (n, 3), unit tangents, in-plane normals (n, 3), t (n,) in [0, 1]."""
     chord = np.concatenate([[0.0], np.cumsum(np.linalg.norm(np.diff(HANDLE_PTS, axis=0), axis=1))])
-    spline = make_interp_spline(chord / chord[-1], HANDLE_PTS, k=3)
+    ends = ([(1, np.array([-chord[-1], 0.0]))], [(1, np.array([chord[-1], 0.0]))])   # radial at both ends
+    spline = make_interp_spline(chord / chord[-1], HANDLE_PTS, k=3, bc_type=ends)
     t = np.linspace(0.0, 1.0, n_along)
     xz = spline(t)
     dxz = spline.derivative()(t)

@@ -211,3 +211,20 @@ def test_ensure_demo_scene_generates_into_the_cache_without_the_repo(tmp_path, m
     assert read_manifest(first).views
     assert demo.ensure_demo_scene() == first and len(calls) == 1      # the second call reuses it
     assert [p.name for p in first.parent.parent.parent.iterdir()] == [f"demo-{demo.DEMO_VERSION}"]
+
+
+@pytest.mark.parametrize("res", [demo.DemoConfig().handle_true, demo.DemoConfig().handle_scan])
+def test_handle_ends_stay_buried_in_the_wall(res):
+    """The handle's closed ends sit between the wall's outer and inner surfaces: nothing pokes into
+    the jug or shows a cut end outside (radii compared with the profile at the same height)."""
+    p, parts = demo.dense_profile()
+    inner, outer = parts == demo.INNER, parts == demo.OUTER
+    order = np.argsort(p[inner, 1])
+    v, _, _ = demo.handle_mesh(*res)
+    r = np.hypot(v[:, 0], v[:, 1])
+    r_in = np.interp(v[:, 2], p[inner, 1][order], p[inner, 0][order])
+    r_out = np.interp(v[:, 2], p[outer, 1], p[outer, 0])
+    assert np.all(r > r_in + 0.001)
+    ring = res[1] + 1
+    for end in (slice(0, ring), slice((res[0] - 1) * ring, res[0] * ring)):
+        assert np.all(r[end] < r_out[end] - 0.001)
