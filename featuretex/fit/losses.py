@@ -72,3 +72,12 @@ def masked_l1(x: torch.Tensor, y: torch.Tensor, mask: torch.Tensor) -> torch.Ten
 def psnr(mse: float) -> float:
     """PSNR in dB of a mean squared error on [0, 1] values."""
     return 10.0 * math.log10(1.0 / max(mse, 1e-12))
+
+
+def srgb_encode_leaky(x: torch.Tensor) -> torch.Tensor:
+    """sRGB encoding (IEC 61966-2-1) of linear `x`, continued with slope 1 outside [0, 1] so values
+    that overshoot still get a gradient back into range (a hard clamp would freeze them)."""
+    from featuretex.scene.colour import linear_to_srgb_torch
+
+    c = x.clamp(0.0, 1.0)
+    return linear_to_srgb_torch(c) + (x - c)
