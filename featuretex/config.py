@@ -12,6 +12,9 @@ from typing import Any
 from hydra.core.config_store import ConfigStore
 
 from featuretex.bake.baseline import BaselineConfig
+from featuretex.bake.neural import BakeConfig
+from featuretex.diagnose.config import DiagnoseConfig
+from featuretex.fit.config import FitConfig
 
 
 @dataclass
@@ -43,7 +46,11 @@ class FeaturetexConfig:
     raster: RasterConfig = field(default_factory=RasterConfig)
     texture: TextureConfig = field(default_factory=TextureConfig)
     baseline: BaselineConfig = field(default_factory=BaselineConfig)
+    fit: FitConfig = field(default_factory=FitConfig)
+    bake: BakeConfig = field(default_factory=BakeConfig)
     export: ExportConfig = field(default_factory=ExportConfig)
+    diagnose: DiagnoseConfig = field(default_factory=DiagnoseConfig)
+    report: bool = True           # write report.html (with turntable previews)
 
 
 def register() -> None:

@@ -1,20 +1,32 @@
-"""The whole run, stage by stage in data-flow order; each stage resumes or skips when it can."""
+"""The whole run, stage by stage in data-flow order; each stage resumes or skips when it can.
+
+    scene -> G-buffers -> baseline bake -> fit -> bake -> export -> diagnose -> score -> report
+"""
 
 from __future__ import annotations
 
+import dataclasses
+import json
 import logging
 import time
 from pathlib import Path
 
 import numpy as np
 
+from featuretex import plugins
 from featuretex.atomic import atomic_path, write_json
 from featuretex.bake.baseline import bake_baseline
+from featuretex.bake.neural import bake_model, score_bake
 from featuretex.bake.texel_size import auto_texture_size
 from featuretex.config import FeaturetexConfig
+from featuretex.diagnose.core import diagnose
+from featuretex.diagnose.outputs import write_outputs
 from featuretex.export.png import write_texture_png
+from featuretex.fit.loop import fit_scene
+from featuretex.fit.render import render_view
+from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.stage import build_gbuffers
-from featuretex.raster.uvspace import rasterise_uv
+from featuretex.raster.uvspace import TexelBuffer, rasterise_uv
 from featuretex.render import render_texture
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene, load_scene
@@ -22,6 +34,7 @@ from featuretex.score import score_method
 from featuretex.stages import StageBook, key_of
 
 log = logging.getLogger("featuretex")
+HELDOUT_DIR = "heldout"
 
 
 def resolve_scene_path(scene: str) -> Path:
@@ -32,6 +45,100 @@ def resolve_scene_path(scene: str) -> Path:
     return Path(scene).expanduser()
 
 
+def _save_npz(path: Path, **arrays: np.ndarray) -> None:
+    with atomic_path(path) as tmp:
+        np.savez_compressed(tmp, **arrays)
+
+
+def stage_gbuffers(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook, scene_key: str
+                   ) -> dict[str, GBuffer]:
+    """Cached on disk by mesh + camera content: cheap on a re-run, whatever else changed."""
+    t0 = time.perf_counter()
+    gbuffers, rendered = build_gbuffers(scene, out / "cache" / "gbuffer", cfg.raster.backend, quiet=cfg.quiet)
+    if rendered == 0 and "gbuffer" in book.records:
+        book.timings["gbuffer"] = book.records["gbuffer"]["seconds"]
+    else:
+        book.timings["gbuffer"] = round(time.perf_counter() - t0, 3)
+        book.records["gbuffer"] = {"key": scene_key, "seconds": book.timings["gbuffer"]}
+    return gbuffers
+
+
+def stage_baseline(scene: Scene, gbuffers, texels: TexelBuffer, cfg: FeaturetexConfig, out: Path,
+                   book: StageBook, key: str) -> tuple[np.ndarray, np.ndarray]:
+    npz = out / "stages" / "baseline.npz"
+
+    def compute():
+        b = bake_baseline(scene, gbuffers, texels, dataclasses.replace(cfg.baseline, gutter=cfg.texture.gutter))
+        write_texture_png(out / "baseline_texture.png", linear_to_srgb(b.texture_lin))
+        _save_npz(npz, texture_lin=b.texture_lin, seen=b.seen)
+        return b.texture_lin, b.seen
+
+    def load():
+        z = np.load(npz)
+        return z["texture_lin"], z["seen"]
+
+    return book.run("baseline", key, [npz, out / "baseline_texture.png"], compute, load)
+
+
+def stage_bake(scene: Scene, gbuffers, texels: TexelBuffer, model, cfg: FeaturetexConfig, out: Path,
+               book: StageBook, key: str) -> np.ndarray:
+    npz = out / "stages" / "bake.npz"
+    png = out / "texture.png"
+
+    def compute():
+        r = bake_model(scene, gbuffers, texels, model, dataclasses.replace(cfg.bake, gutter=cfg.texture.gutter))
+        write_texture_png(png, linear_to_srgb(r.texture_lin), bits=cfg.texture.bits)
+        _save_npz(npz, texture_lin=r.texture_lin, seen=r.seen)
+        return r.texture_lin
+
+    return book.run("bake", key, [npz, png], compute, lambda: np.load(npz)["texture_lin"])
+
+
+def stage_export(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook, key: str) -> list[Path]:
+    exporters = [plugins.load("exporters", name)() for name in cfg.export.formats]
+    files = [out / "model.glb"] if "glb" in cfg.export.formats else []
+
+    def compute():
+        written: list[Path] = []
+        for ex in exporters:
+            written += ex.export(out, scene.mesh, out / "texture.png", unlit=cfg.export.unlit)
+        return written
+
+    return book.run("export", key, files, compute, lambda: files)
+
+
+def stage_diagnose(scene: Scene, gbuffers, texels: TexelBuffer, texture_lin: np.ndarray, fit, cfg: FeaturetexConfig,
+                   out: Path, book: StageBook, key: str) -> dict:
+    record = out / "stages" / "diagnosis.json"
+
+    def compute():
+        dg = diagnose(scene, gbuffers, texels, texture_lin, cfg.diagnose, corrections=fit.corrections,
+                      history=fit.history)
+        write_outputs(out, dg, scene, texels)
+        fields = dg.summary_fields()
+        fields["figures"] = _jsonable(dg.figures)
+        write_json(record, fields)
+        return fields
+
+    artefacts = [record, out / "error_map.png", out / "error_map.npz", out / "diagnosis.ply"]
+    return book.run("diagnose", key, artefacts, compute, lambda: json.loads(record.read_text()))
+
+
+def _jsonable(obj):
+    """Figures may hold numpy scalars or NaN; JSON takes neither."""
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, (np.floating, float)):
+        return float(obj) if np.isfinite(obj) else None
+    if isinstance(obj, np.integer):
+        return int(obj)
+    return obj
+
+
 def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     """Run every stage for one scene into `out`; return the summary written to summary.json."""
     t_start = time.perf_counter()
@@ -40,56 +147,98 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     book = StageBook(out)
     scene_key = key_of(scene.content_hash)
 
-    # G-buffers: cached on disk by mesh + camera content, so this stage is cheap on a re-run
-    t0 = time.perf_counter()
-    gbuffers, rendered = build_gbuffers(scene, out / "cache" / "gbuffer", cfg.raster.backend, quiet=cfg.quiet)
-    book.timings["gbuffer"] = round(time.perf_counter() - t0, 3)
-    if rendered == 0 and "gbuffer" in book.records:
-        book.timings["gbuffer"] = book.records["gbuffer"]["seconds"]
-    else:
-        book.records["gbuffer"] = {"key": scene_key, "seconds": book.timings["gbuffer"]}
-
+    gbuffers = stage_gbuffers(scene, cfg, out, book, scene_key)
     size = cfg.texture.size or auto_texture_size(scene, gbuffers, min_size=cfg.texture.min_size,
                                                  max_size=cfg.texture.max_size)
     texels = rasterise_uv(scene.mesh, size)
 
-    # classical baseline bake
     base_key = key_of(scene_key, size, cfg.baseline, cfg.texture.gutter)
-    base_npz = out / "stages" / "baseline.npz"
+    base_tex, base_seen = stage_baseline(scene, gbuffers, texels, cfg, out, book, base_key)
 
-    def compute_baseline():
-        b = bake_baseline(scene, gbuffers, texels, cfg.baseline)
-        write_texture_png(out / "baseline_texture.png", linear_to_srgb(b.texture_lin))
-        with atomic_path(base_npz) as tmp:
-            np.savez_compressed(tmp, texture_lin=b.texture_lin, seen=b.seen)
-        return b.texture_lin, b.seen
+    # the fit resumes from its checkpoint, or loads fit/model.pt when it already finished
+    fit_key = key_of(base_key, cfg.fit, cfg.seed)
+    t0 = time.perf_counter()
+    fit = fit_scene(scene, gbuffers, base_tex, base_seen, cfg.fit, out, seed=cfg.seed, quiet=cfg.quiet,
+                    config_hash=fit_key)
+    if fit.stopped == "loaded" and "fit" in book.records:
+        book.timings["fit"] = book.records["fit"]["seconds"]
+    else:
+        book.timings["fit"] = round(float(fit.timings.get("fit_s", time.perf_counter() - t0)), 3)
+        book.records["fit"] = {"key": fit_key, "seconds": book.timings["fit"]}
+        write_json(book.path, book.records)
 
-    def load_baseline():
-        z = np.load(base_npz)
-        return z["texture_lin"], z["seen"]
+    bake_key = key_of(fit_key, cfg.bake, cfg.texture)
+    baked_tex = stage_bake(scene, gbuffers, texels, fit.model, cfg, out, book, bake_key)
+    stage_export(scene, cfg, out, book, key_of(bake_key, cfg.export))
+    diag = stage_diagnose(scene, gbuffers, texels, baked_tex, fit, cfg, out, book,
+                          key_of(bake_key, cfg.diagnose))
 
-    base_tex, base_seen = book.run("baseline", base_key, [base_npz, out / "baseline_texture.png"],
-                                   compute_baseline, load_baseline)
+    t0 = time.perf_counter()
+    heldout = score_all(scene, gbuffers, base_tex, fit.model, baked_tex, out, cfg.seed)
+    book.timings["score"] = round(time.perf_counter() - t0, 3)
 
-    heldout_dir = out / "heldout"
-    renders = {v.name: render_texture(gbuffers[v.name], scene.mesh, base_tex) for v in scene.manifest.heldout}
-    heldout = {"baseline": score_method(scene, gbuffers, renders, heldout_dir, "baseline")}
-
-    summary = build_summary(scene, cfg, size, heldout, book, time.perf_counter() - t_start)
+    summary = build_summary(scene, cfg, size, heldout, diag, fit, book, time.perf_counter() - t_start)
     write_json(out / "summary.json", summary)
+    if cfg.report:
+        from featuretex.report.html import write_report
+
+        t0 = time.perf_counter()
+        write_report(out)
+        summary["timings_s"]["report"] = round(time.perf_counter() - t0, 3)
+        write_json(out / "summary.json", summary)
     return summary
 
 
-def build_summary(scene: Scene, cfg: FeaturetexConfig, size: int, heldout: dict, book: StageBook,
-                  total_s: float) -> dict:
+def score_all(scene: Scene, gbuffers, base_tex: np.ndarray, model, baked_tex: np.ndarray, out: Path,
+              seed: int) -> dict:
+    """Held-out figures of the three methods; renders go to `out/heldout/` for the report."""
+    image_dir = out / HELDOUT_DIR
+    held = scene.manifest.heldout
+    base = score_method(scene, gbuffers, {v.name: render_texture(gbuffers[v.name], scene.mesh, base_tex)
+                                          for v in held}, image_dir, "baseline")
+    neural = score_method(scene, gbuffers, {v.name: render_view(model, scene, gbuffers[v.name], v)
+                                            for v in held}, image_dir, "neural")
+    baked = score_bake(scene, gbuffers, baked_tex, neural, image_dir, seed)
+    return {"baseline": base, "neural": neural, "baked": baked["baked"], "bake_gap_db": baked["bake_gap_db"],
+            "seams": baked["seams"]}
+
+
+def _strip(d: dict) -> dict:
+    return {k: v for k, v in d.items() if k != "per_view"}
+
+
+def build_summary(scene: Scene, cfg: FeaturetexConfig, size: int, heldout: dict, diag: dict, fit,
+                  book: StageBook, total_s: float) -> dict:
     m = scene.manifest
+    methods = ("baseline", "baked", "neural")
+    hist = fit.history or {}
     return {
+        "verdict": diag["verdict"],
+        "reasons": diag["reasons"],
+        "heldout": {k: _strip(heldout[k]) for k in methods},
+        "areas": diag["areas"],
+        "timings_s": {**{k: book.timings.get(k) for k in ("gbuffer", "baseline", "fit", "bake", "export",
+                                                          "diagnose", "score")},
+                      "total": round(total_s, 3)},
+        "bake_gap_db": heldout["bake_gap_db"],
+        "gain_db": {
+            "neural_tolerant_vs_baseline": _diff(heldout["neural"], heldout["baseline"], "psnr_tolerant"),
+            "baked_tolerant_vs_baseline": _diff(heldout["baked"], heldout["baseline"], "psnr_tolerant"),
+            "baked_plain_vs_baseline": _diff(heldout["baked"], heldout["baseline"], "psnr"),
+        },
+        "seams": heldout["seams"],
+        "heldout_per_view": {k: heldout[k].get("per_view", {}) for k in methods},
+        "diagnosis": diag.get("figures", {}),
+        "fit": {"steps": hist.get("steps_done", None), "stopped": fit.stopped},
         "scene": str(m.path),
         "unit": m.unit,
         "texture_size": size,
         "views": {"fitted": len(m.fitted), "heldout": len(m.heldout)},
-        "heldout": {k: {kk: vv for kk, vv in v.items() if kk != "per_view"} for k, v in heldout.items()},
-        "heldout_per_view": {k: v.get("per_view", {}) for k, v in heldout.items()},
-        "timings_s": {**book.timings, "total": round(total_s, 3)},
         "seed": cfg.seed,
     }
+
+
+def _diff(a: dict, b: dict, key: str) -> float | None:
+    if a.get(key) is None or b.get(key) is None:
+        return None
+    return round(float(a[key] - b[key]), 4)
