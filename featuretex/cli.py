@@ -45,11 +45,18 @@ def _hydra_main(cfg: DictConfig) -> dict:
 
 
 def main() -> None:
+    from featuretex.safety import check_argv, check_output_dir
+
     try:
+        check_argv(sys.argv[1:])        # before Hydra can build anything a config names
+        check_output_dir(sys.argv[1:])  # Hydra writes .hydra/ there before any of our code runs
         _hydra_main()
     except InputError as e:  # raised before the job starts (config validation)
         print(f"featuretex: {e}", file=sys.stderr)
         sys.exit(InputError.exit_code)
+    except OSError as e:
+        print(f"featuretex: cannot write the output '{e.filename}': {e.strerror or e}", file=sys.stderr)
+        sys.exit(OUTPUT_ERROR_EXIT)
 
 
 if __name__ == "__main__":
