@@ -4,14 +4,22 @@ import numpy as np
 import torch
 from scipy import ndimage
 
-from featuretex.model.texture import FeatureTexture, build_pyramid, mip_taps, sample_taps
+from featuretex.model.texture import build_pyramid, mip_taps, sample_layer, sample_taps
 
 
-def _texture(T: int, C: int, seed: int = 0) -> FeatureTexture:
-    tex = FeatureTexture(T, C)
-    with torch.no_grad():
-        tex.values.copy_(torch.from_numpy(np.random.default_rng(seed).random((T, T, C), dtype=np.float32)))
-    return tex
+class _Layer:
+    """A random (T, T, C) layer and its sampler."""
+
+    def __init__(self, T: int, C: int, seed: int = 0):
+        self.values = torch.from_numpy(np.random.default_rng(seed).random((T, T, C), dtype=np.float32))
+        self.values.requires_grad_()
+
+    def sample(self, uv, rho):
+        return sample_layer(self.values, uv, rho)
+
+
+def _texture(T: int, C: int, seed: int = 0) -> _Layer:
+    return _Layer(T, C, seed)
 
 
 def test_level0_matches_scipy_map_coordinates():

@@ -15,12 +15,14 @@ class FitConfig:
     warmup: int = 20                 # steps of linear learning-rate warm-up
     final_lr_frac: float = 0.1       # cosine decay down to this fraction of each learning rate
     lr: float = 5e-3                 # feature texture (linear-light units per step)
+    lr_latent: float = 1e-2          # latent feature layer
     lr_decoder: float = 2e-3         # head and screen-space decoder
     lr_colour: float = 2e-3          # per-view colour affine
     lr_align: float = 0.05           # per-view alignment fields (pixels per step)
     # model
-    channels: int = 8                # feature channels per texel (0..2 start as the baseline colour)
-    texture_size: int = 0            # texels per side; 0 = the baseline's size (photo footprint)
+    channels: int = 8                # latent feature channels (read by the screen-space decoder)
+    latent_scale: int = 4            # latent layer has texture_size / latent_scale texels per side
+    texture_size: int = 0            # colour-layer texels per side; 0 = the baseline's size (photo footprint)
     decoder: str = "texel-screen"    # decoder plugin name ("texel" = bakeable head only)
     hidden: int = 24                 # screen-space decoder width
     layers: int = 2                  # 3x3 conv layers of the screen-space decoder

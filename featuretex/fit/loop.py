@@ -82,7 +82,7 @@ def build_model(cfg: FitConfig, init_texture_lin: np.ndarray, names: list[str], 
     W = max(s[0] for s in sizes)
     corr = ViewCorrections(names, sizes, grid_shape(H, W, cfg.align_cell_px), reference)
     kwargs = {"hidden": cfg.hidden, "layers": cfg.layers, "bound": cfg.residual_bound}
-    model = SceneModel(size, max(3, cfg.channels), cfg.decoder, kwargs, corr)
+    model = SceneModel(size, cfg.channels, cfg.decoder, kwargs, corr, cfg.latent_scale)
     model.texture.initialise(init_texture_lin, rng)
     return model
 
@@ -102,7 +102,8 @@ def fill_unmeasured(tex: np.ndarray, valid: np.ndarray | None) -> np.ndarray:
 def make_optimiser(model: SceneModel, cfg: FitConfig) -> torch.optim.Optimizer:
     assert model.corrections is not None
     groups = [
-        {"params": [model.texture.values], "base_lr": cfg.lr},
+        {"params": [model.texture.colour], "base_lr": cfg.lr},
+        {"params": [model.texture.latent], "base_lr": cfg.lr_latent},
         {"params": list(model.decoder.parameters()), "base_lr": cfg.lr_decoder},
         {"params": [model.corrections.colour_delta, model.corrections.colour_bias], "base_lr": cfg.lr_colour},
         {"params": [model.corrections.align], "base_lr": cfg.lr_align},
@@ -124,7 +125,7 @@ def lr_factor(step: int, cfg: FitConfig) -> float:
 def forward_flops_per_pixel(model: SceneModel) -> dict[str, int]:
     """Dense arithmetic per pixel of one forward pass (texel gathers and activations not counted)."""
     out = model.decoder.flops_per_pixel()
-    out["sampling"] = 2 * 8 * model.texture.channels   # upper bound: 8 trilinear taps
+    out["sampling"] = 2 * 8 * model.texture.out_channels   # upper bound: 8 trilinear taps per layer
     return out
 
 
@@ -133,7 +134,8 @@ def describe(model: SceneModel) -> str:
     tex = model.texture
     screen = parameter_count(model.decoder.screen) if model.decoder.screen is not None else 0
     corr = parameter_count(model.corrections) if model.corrections is not None else 0
-    return (f"fit model: texture {tex.size}x{tex.size}x{tex.channels} ({tex.values.numel():,} params), "
+    return (f"fit model: colour layer {tex.size}x{tex.size}x3, latent layer {tex.latent_size}x{tex.latent_size}"
+            f"x{tex.channels} ({tex.colour.numel() + tex.latent.numel():,} params), "
             f"decoder '{model.decoder_name}': head {parameter_count(model.decoder.head)} + screen {screen:,} "
             f"params, corrections {corr:,} params; per-pixel forward FLOPs: sampling <= {fl['sampling']}, "
             f"head {fl['head']}, screen {fl.get('screen', 0):,}")

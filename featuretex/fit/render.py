@@ -11,7 +11,6 @@ import torch
 
 from featuretex.fit.viewdata import PHOTO_MARGIN, ViewData, prepare_view
 from featuretex.model.scene_model import PixelBatch, SceneModel
-from featuretex.model.texture import mip_taps, sample_taps, build_pyramid
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import texel_uv
 from featuretex.scene.loaded import Scene
@@ -92,16 +91,15 @@ def render_decoder_residual(model: SceneModel, scene: Scene, gbuffer: GBuffer, v
 def render_texel_head(model: SceneModel, size: int | None = None) -> np.ndarray:
     """(T, T, 3) float32 linear: the head applied per texel — the exactly bakeable RGB texture.
 
-    At the model's own size this is the head on every texel; another size resamples the features
-    with the same mip filter (texel centres of the new grid, footprint of one new texel).
+    At the model's own size this is the head on every texel; another size resamples the colour
+    layer with the same mip filter (texel centres of the new grid, footprint of one new texel).
     """
     tex = model.texture
     T = tex.size if size is None else int(size)
     if T == tex.size:
-        return model.decoder.head(tex.values).numpy().astype(np.float32)
+        return model.decoder.head(tex.colour).numpy().astype(np.float32)
     uv = torch.from_numpy(texel_uv(T).reshape(-1, 2).astype(np.float32))
-    taps = mip_taps(uv, torch.full((T * T,), 1.0 / T), tex.size)
-    feat = sample_taps(build_pyramid(tex.values, taps.levels), taps)
+    feat = tex.sample_colour(uv, torch.full((T * T,), 1.0 / T))
     return model.decoder.head(feat).reshape(T, T, 3).numpy().astype(np.float32)
 
 

@@ -25,7 +25,7 @@ class ViewData:
     uv: torch.Tensor           # (H, W, 2) float32 uv, v up (0 off the mesh)
     rho: torch.Tensor          # (H, W) float32 footprint, uv units per pixel
     cover: torch.Tensor        # (H, W) bool: surface at the pixel centre
-    geo: torch.Tensor          # (6, H, W) float32 view direction + normal, camera axes
+    geo: torch.Tensor          # (12, H, W) float32 view direction + normal, camera then world axes
     photo: torch.Tensor | None = None       # (3, H + 2m, W + 2m) float32 linear, m = PHOTO_MARGIN
     loss_mask: torch.Tensor | None = None   # (H, W) bool: cover ∩ photo mask, eroded
     score_mask: torch.Tensor | None = None  # (H, W) bool: cover ∩ photo mask (as held-out scoring)
@@ -37,13 +37,16 @@ class ViewData:
 
 
 def geometry_inputs(gbuf: GBuffer, mesh: SceneMesh, view: View) -> tuple[np.ndarray, np.ndarray]:
-    """(H, W, 2) uv and (6, H, W) [view direction, shading normal] in camera axes, float32."""
+    """(H, W, 2) uv and (12, H, W) float32: unit view direction (camera -> surface) and shading
+    normal in camera axes, then both in world axes (0 off the mesh)."""
     uv = gbuf.uv(mesh)
     cov = np.asarray(gbuf.coverage)
-    pos_cam = view.to_camera(gbuf.position(mesh).reshape(-1, 3)).reshape(gbuf.shape + (3,))
-    vdir = pos_cam / np.maximum(np.linalg.norm(pos_cam, axis=-1, keepdims=True), 1e-12)
-    nrm = gbuf.normal(mesh) @ view.R.T
-    geo = np.concatenate([vdir, nrm], axis=-1) * cov[..., None]
+    pos = gbuf.position(mesh)
+    vdir_w = pos - view.centre.astype(np.float32)
+    vdir_w /= np.maximum(np.linalg.norm(vdir_w, axis=-1, keepdims=True), 1e-12)
+    nrm_w = gbuf.normal(mesh)
+    R = view.R.astype(np.float32)
+    geo = np.concatenate([vdir_w @ R.T, nrm_w @ R.T, vdir_w, nrm_w], axis=-1) * cov[..., None]
     return uv, np.ascontiguousarray(geo.transpose(2, 0, 1), dtype=np.float32)
 
 

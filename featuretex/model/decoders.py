@@ -1,13 +1,14 @@
 """Decoders (plugins of kind "decoders"): how sampled features become a linear-light colour.
 
-Every decoder has the same per-texel head: a *linear* map from the C texture channels to RGB.
-Texture filtering (bilinear, trilinear) is linear too, so applying the head to filtered features
-in screen space gives exactly the same colour as filtering the head's RGB texture: the head is
-bakeable exactly, at every level of detail. (A non-linear head would commute with neither.)
+Every decoder has the same per-texel head: a *linear* map (3 x 3 matrix + bias) of the texture's
+colour layer. Texture filtering (bilinear, trilinear) is linear too, so applying the head to
+filtered texels in screen space gives exactly the same colour as filtering the head's RGB
+texture: the head is bakeable exactly, at every level of detail. (A non-linear head would not
+commute with the filter.)
 
-"texel-screen" adds a small convolutional network in screen space that sees the sampled
-features, the head's colour, and the view direction and normal in camera space, and outputs a
-bounded residual for what one colour per texel cannot hold (shine that moves with the view,
+"texel-screen" adds a small convolutional network in screen space that sees the sampled latent
+features, the head's colour, and the view direction and normal (in camera and in world axes:
+lights may be fixed to either), and outputs a bounded residual for what one colour per texel cannot hold (shine that moves with the view,
 sub-pixel misregistration). Its last layer starts at zero, so the first render is the head's.
 """
 
@@ -16,21 +17,19 @@ from __future__ import annotations
 import torch
 from torch import nn
 
-GEO_CHANNELS = 6  # view direction (3) + normal (3), unit vectors in camera axes
+GEO_CHANNELS = 12  # view direction (3) + normal (3) in camera axes, then the same in world axes
 
 
 class TexelHead(nn.Module):
-    """colour = W f + b per texel; starts as the identity on channels 0..2."""
+    """colour = W c + b per texel of the colour layer c; starts as the identity."""
 
-    def __init__(self, channels: int):
+    def __init__(self) -> None:
         super().__init__()
-        w = torch.zeros(3, channels)
-        w[:, :3] = torch.eye(3)
-        self.weight = nn.Parameter(w)                     # (3, C)
+        self.weight = nn.Parameter(torch.eye(3))          # (3, 3)
         self.bias = nn.Parameter(torch.zeros(3))          # (3,) linear light
 
     def forward(self, feat: torch.Tensor) -> torch.Tensor:
-        """(..., C) features -> (..., 3) linear colour."""
+        """(..., 3) colour-layer texels -> (..., 3) linear colour."""
         return feat @ self.weight.t() + self.bias
 
     def flops_per_sample(self) -> int:
@@ -70,7 +69,7 @@ class TexelDecoder(nn.Module):
 
     def __init__(self, channels: int, *, hidden: int = 24, layers: int = 2, bound: float = 0.25):
         super().__init__()
-        self.head = TexelHead(channels)
+        self.head = TexelHead()
         self.screen: ScreenDecoder | None = None
 
     @property
@@ -78,8 +77,8 @@ class TexelDecoder(nn.Module):
         return 0 if self.screen is None else self.screen.halo
 
     def residual(self, feat: torch.Tensor, colour: torch.Tensor, geo: torch.Tensor) -> torch.Tensor | None:
-        """(B, 3, h, w) screen-space residual from feat (B, C, h, w), colour (B, 3, h, w) linear
-        and geo (B, 6, h, w); None when the decoder has no screen-space part."""
+        """(B, 3, h, w) screen-space residual from latent features feat (B, C, h, w), colour
+        (B, 3, h, w) linear and geo (B, GEO_CHANNELS, h, w); None when the decoder has no screen-space part."""
         return None
 
     def flops_per_pixel(self) -> dict[str, int]:

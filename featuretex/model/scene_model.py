@@ -21,7 +21,7 @@ class PixelBatch:
     cover: torch.Tensor     # (B, h, w) bool: a surface is seen at the pixel centre
     uv: torch.Tensor        # (N, 2) float32 uv (v up) of the covered pixels, row-major over cover
     rho: torch.Tensor       # (N,) float32 footprint, uv units per pixel
-    geo: torch.Tensor       # (B, 6, h, w) float32 view direction + normal, camera axes (0 off the mesh)
+    geo: torch.Tensor       # (B, GEO_CHANNELS, h, w) float32 view direction + normal (0 off the mesh)
 
 
 @dataclass
@@ -36,9 +36,10 @@ class Render:
 
 class SceneModel(nn.Module):
     def __init__(self, size: int, channels: int, decoder: str, decoder_kwargs: dict[str, Any],
-                 corrections: ViewCorrections | None = None):
+                 corrections: ViewCorrections | None = None, latent_scale: int = 4):
         super().__init__()
-        self.texture = FeatureTexture(size, channels)
+        self.texture = FeatureTexture(size, channels, latent_scale)
+        self.latent_scale = int(latent_scale)
         cls = plugins.load("decoders", decoder)
         self.decoder: TexelDecoder = cls(channels, **decoder_kwargs)
         self.decoder_name = decoder
@@ -48,13 +49,17 @@ class SceneModel(nn.Module):
     def forward(self, batch: PixelBatch) -> Render:
         B, h, w = batch.cover.shape
         C = self.texture.channels
-        feat = self.texture.sample(batch.uv, batch.rho)                 # (N, C)
-        colour = self.decoder.head(feat)                                # (N, 3)
         flat = torch.nonzero(batch.cover.reshape(-1), as_tuple=True)[0]
-        dense = feat.new_zeros(B * h * w, C + 3).index_copy(0, flat, torch.cat([feat, colour], 1))
+        if self.decoder.screen is None:
+            colour = self.decoder.head(self.texture.sample_colour(batch.uv, batch.rho))   # (N, 3)
+            dense = colour.new_zeros(B * h * w, 3).index_copy(0, flat, colour)
+            return Render(colour=dense.reshape(B, h, w, 3).permute(0, 3, 1, 2).contiguous(), residual=None)
+        feat = self.texture.sample(batch.uv, batch.rho)                 # (N, 3 + C)
+        colour = self.decoder.head(feat[:, :3])                         # (N, 3)
+        dense = feat.new_zeros(B * h * w, C + 3).index_copy(0, flat, torch.cat([feat[:, 3:], colour], 1))
         img = dense.reshape(B, h, w, C + 3).permute(0, 3, 1, 2)
         colour_img = img[:, C:]
-        res = self.decoder.residual(img[:, :C], colour_img, batch.geo) if self.decoder.screen is not None else None
+        res = self.decoder.residual(img[:, :C], colour_img, batch.geo)
         if res is not None:
             res = res * batch.cover[:, None].to(res.dtype)
         return Render(colour=colour_img.contiguous(), residual=res)
@@ -62,7 +67,8 @@ class SceneModel(nn.Module):
     def meta(self) -> dict[str, Any]:
         """Plain-typed description (loadable with torch.load(weights_only=True))."""
         c = self.corrections
-        return {"size": self.texture.size, "channels": self.texture.channels, "decoder": self.decoder_name,
+        return {"size": self.texture.size, "channels": self.texture.channels, "latent_scale": self.latent_scale,
+                "decoder": self.decoder_name,
                 "decoder_kwargs": self.decoder_kwargs,
                 "views": list(c.names) if c is not None else [],
                 "grid_hw": list(c.align.shape[2:]) if c is not None else [],
@@ -75,7 +81,8 @@ class SceneModel(nn.Module):
         if meta["views"]:
             corr = ViewCorrections(meta["views"], [tuple(s) for s in meta["image_sizes"]],
                                    tuple(meta["grid_hw"]), meta["reference"])
-        return cls(meta["size"], meta["channels"], meta["decoder"], meta["decoder_kwargs"], corr)
+        return cls(meta["size"], meta["channels"], meta["decoder"], meta["decoder_kwargs"], corr,
+                   meta.get("latent_scale", 4))
 
     def view_index(self, name: str) -> int | None:
         if self.corrections is None or name not in self.corrections.names:

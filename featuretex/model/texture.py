@@ -117,30 +117,51 @@ def sample_taps(table: torch.Tensor, taps: MipTaps) -> torch.Tensor:
 
 
 class FeatureTexture(nn.Module):
-    """C learned channels per texel on a T x T grid, in the mesh's UV layout."""
+    """Two layers in the mesh's UV layout: an RGB colour layer at T x T and C latent feature
+    channels at the lower resolution T / latent_scale (only the screen-space decoder reads them).
 
-    def __init__(self, size: int, channels: int):
+    Why two resolutions: the colour layer must be as sharp as the photos allow (it is what gets
+    baked), while view-dependent effects vary slowly over the surface; keeping the latent layer
+    coarse cuts the per-step cost of its mip pyramid and optimiser state by latent_scale^2.
+    """
+
+    def __init__(self, size: int, channels: int, latent_scale: int = 4):
         super().__init__()
         self.size, self.channels = int(size), int(channels)
-        self.values = nn.Parameter(torch.zeros(self.size, self.size, self.channels))  # (T, T, C)
+        self.latent_size = max(1, self.size // max(1, int(latent_scale)))
+        self.colour = nn.Parameter(torch.zeros(self.size, self.size, 3))                     # (T, T, 3) linear
+        self.latent = nn.Parameter(torch.zeros(self.latent_size, self.latent_size, self.channels))  # (Tl, Tl, C)
+
+    @property
+    def out_channels(self) -> int:
+        return 3 + self.channels
 
     @torch.no_grad()
     def initialise(self, colour_lin: np.ndarray, rng: np.random.Generator, latent_sigma: float = 0.01) -> None:
-        """Channels 0..2 = `colour_lin` (T0, T0, 3) linear (resized to T); the rest small noise.
+        """Colour layer = `colour_lin` (T0, T0, 3) linear (resized to T); latent layer small noise.
 
-        The noise only breaks the symmetry between latent channels; the texel head starts as the
-        identity on channels 0..2, so the first render already equals the given bake.
+        The noise only breaks the symmetry between latent channels; the decoder's residual starts
+        at zero, so the first render already equals the given bake.
         """
-        col = resize_texture(np.asarray(colour_lin, np.float32), self.size)
-        self.values[..., :3] = torch.from_numpy(col)
-        if self.channels > 3:
-            noise = rng.normal(0.0, latent_sigma, (self.size, self.size, self.channels - 3))
-            self.values[..., 3:] = torch.from_numpy(noise.astype(np.float32))
+        self.colour.copy_(torch.from_numpy(resize_texture(np.asarray(colour_lin, np.float32), self.size)))
+        noise = rng.normal(0.0, latent_sigma, tuple(self.latent.shape))
+        self.latent.copy_(torch.from_numpy(noise.astype(np.float32)))
+
+    def sample_colour(self, uv: torch.Tensor, rho: torch.Tensor | None) -> torch.Tensor:
+        """(N, 3) colour layer at `uv` (N, 2) with footprints `rho` (N,) uv units per pixel (None = level 0)."""
+        return sample_layer(self.colour, uv, rho)
 
     def sample(self, uv: torch.Tensor, rho: torch.Tensor | None) -> torch.Tensor:
-        """(N, C) features at `uv` (N, 2) with footprints `rho` (N,) uv units per pixel (None = level 0)."""
-        taps = mip_taps(uv, rho, self.size)
-        return sample_taps(build_pyramid(self.values, taps.levels), taps)
+        """(N, 3 + C): colour layer then latent layer, each mip-filtered at its own resolution."""
+        if self.channels == 0:
+            return self.sample_colour(uv, rho)
+        return torch.cat([self.sample_colour(uv, rho), sample_layer(self.latent, uv, rho)], dim=1)
+
+
+def sample_layer(values: torch.Tensor, uv: torch.Tensor, rho: torch.Tensor | None) -> torch.Tensor:
+    """(N, K) trilinear samples of a (T, T, K) layer at `uv` (N, 2) with footprints `rho` (N,)."""
+    taps = mip_taps(uv, rho, values.shape[0])
+    return sample_taps(build_pyramid(values, taps.levels), taps)
 
 
 def resize_texture(tex: np.ndarray, size: int) -> np.ndarray:
