@@ -17,7 +17,7 @@ import pytest
 import yaml
 
 from featuretex import batch
-from test_report_fixtures import ROOT, make_scene, run_cli
+from test_report_fixtures import FAST_FIT, ROOT, make_scene, run_cli
 
 pytestmark = pytest.mark.slow
 
@@ -26,8 +26,8 @@ pytestmark = pytest.mark.slow
 # a batch folder: two copies of one tiny scene with different overrides, and a broken scan
 # ---------------------------------------------------------------------------------------------
 SCANS = {  # scan name -> (scene copy, its own settings)
-    "jug_a": ("copy_a", {"texture": {"size": 128}}),
-    "jug_b": ("copy_b", {"seed": 3, "texture": {"size": 256}}),
+    "jug_a": ("copy_a", {"texture": {"size": 64}}),
+    "jug_b": ("copy_b", {"seed": 3, "texture": {"size": 128}}),
 }
 
 
@@ -41,6 +41,7 @@ def shoot(tmp_path_factory) -> Path:
     (conf / "scan").mkdir(parents=True)
     example = yaml.safe_load((ROOT / "examples" / "shoot" / "batch.yaml").read_text())
     example["hydra"]["sweeper"]["params"]["scan"] = ",".join(SCANS)
+    example["fit"] = dict(FAST_FIT)                 # shared settings of the batch
     (conf / "batch.yaml").write_text(yaml.safe_dump(example, sort_keys=False))
     for name, (copy, settings) in SCANS.items():
         body = {"scene": str(root / copy / "scene.yaml"), **settings}

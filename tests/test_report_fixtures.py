@@ -22,6 +22,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 ARTIFACTS = ROOT / "test-artifacts"
 ENV = {**os.environ, "PYOPENGL_PLATFORM": "egl", "HYDRA_FULL_ERROR": "1"}
+# a fit just long enough to leave a history: the report is under test here, not the fit
+FAST_FIT = {"steps": 4, "eval_every": 2, "crop": 32, "batch": 2, "threads": 1}
 
 
 def make_scene(folder: Path, *, views: int = 12, width: int = 128, height: int = 96) -> Path:
@@ -53,7 +55,8 @@ def run_cli(*args: str, timeout: float = 300) -> subprocess.CompletedProcess:
 def make_run_dir(base: Path, *, complete: bool = True) -> Path:
     scene = make_scene(base / "scene")
     run = base / "run"
-    r = run_cli(f"scene={scene}", f"out={run}", "quiet=true")
+    r = run_cli(f"scene={scene}", f"out={run}", "quiet=true", "texture.size=128",
+                *(f"fit.{k}={v}" for k, v in FAST_FIT.items()))
     assert r.returncode == 0, r.stderr[-3000:]
     if complete:
         _complete(run, scene.parent)

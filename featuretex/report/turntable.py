@@ -1,8 +1,8 @@
 """Turntable preview of the exported model: frames rendered with pyrender (headless EGL, unlit, as a
 glTF viewer shows KHR_materials_unlit) and an animated PNG of them.
 
-The camera orbits the model's bounding-box centre about `up` at a fixed elevation and distance, so
-the whole bounding sphere stays in view. Camera poses follow pyrender/OpenGL: camera looks down
+The camera orbits the model's bounding sphere about `up` at a fixed elevation and distance, so the
+whole model stays in view. Camera poses follow pyrender/OpenGL: camera looks down
 its -z axis, +y up.
 """
 
@@ -36,16 +36,17 @@ def _unit(v: np.ndarray) -> np.ndarray:
     return v / max(float(np.linalg.norm(v)), 1e-12)
 
 
-def orbit(bounds: np.ndarray, up: np.ndarray, frames: int, *, elevation_deg: float = 20.0,
-          yfov_deg: float = 30.0, front: np.ndarray | None = None, margin: float = 1.08) -> Orbit:
-    """Camera poses circling a (2, 3) bounding box (scene units) about `up`.
+def orbit(centre: np.ndarray, radius: float, up: np.ndarray, frames: int, *, elevation_deg: float = 20.0,
+          yfov_deg: float = 30.0, front: np.ndarray | None = None, margin: float = 1.05) -> Orbit:
+    """Camera poses circling a sphere (centre (3,), radius, scene units) about `up`, far enough for
+    the whole sphere to stay in view.
 
     `front`: world direction from the object to the first frame's camera (projected onto the
     horizontal plane); any horizontal direction when None.
     """
     up = _unit(np.asarray(up, np.float64))
-    centre = bounds.mean(axis=0)
-    radius = 0.5 * float(np.linalg.norm(bounds[1] - bounds[0])) or 1.0
+    centre = np.asarray(centre, np.float64)
+    radius = float(radius) or 1.0
     yfov = math.radians(yfov_deg)
     dist = margin * radius / math.sin(yfov / 2)
     f = np.asarray(front, np.float64) if front is not None else np.array([1.0, 0.0, 0.0])
@@ -81,6 +82,16 @@ def up_and_front(world_to_camera: list[np.ndarray], centre: np.ndarray) -> tuple
 
 def load_model(glb: Path) -> trimesh.Scene:
     return trimesh.load(str(glb), force="scene")
+
+
+def bounding_sphere(model: trimesh.Scene) -> tuple[np.ndarray, float]:
+    """(centre (3,), radius) scene units: the bounding-box centre and the farthest vertex from it
+    (tighter than half the box diagonal, so the model fills the frame)."""
+    pts = [trimesh.transform_points(model.geometry[g].vertices, T)
+           for T, g in (model.graph[n] for n in model.graph.nodes_geometry)]
+    v = np.concatenate(pts) if pts else np.zeros((1, 3))
+    centre = 0.5 * (v.min(axis=0) + v.max(axis=0))
+    return centre, float(np.linalg.norm(v - centre, axis=1).max())
 
 
 def render_frames(model: trimesh.Scene, cams: Orbit, size: int) -> list[np.ndarray]:
@@ -123,8 +134,8 @@ def turntable(glb: Path, out: Path, *, frames: int = 36, size: int = 360,
     (size, size, 4) uint8 RGBA). Upright and front come from the photo `cameras` ((4, 4)
     world_to_camera each) when given, else glTF's +Y is up."""
     model = load_model(glb)
-    bounds = np.asarray(model.bounds, np.float64)
-    up, front = (np.array([0.0, 1.0, 0.0]), None) if not cameras else up_and_front(cameras, bounds.mean(axis=0))
-    shots = render_frames(model, orbit(bounds, up, frames, front=front), size)
+    centre, radius = bounding_sphere(model)
+    up, front = (np.array([0.0, 1.0, 0.0]), None) if not cameras else up_and_front(cameras, centre)
+    shots = render_frames(model, orbit(centre, radius, up, frames, front=front), size)
     write_animation(out, shots)
     return shots
