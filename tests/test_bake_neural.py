@@ -14,6 +14,7 @@ from scipy import ndimage
 from skimage.transform import downscale_local_mean
 
 import featuretex.model  # noqa: F401  (registers the built-in decoders)
+from featuretex import metrics
 from featuretex.bake.neural import (BakeConfig, ResidualSamples, bake_model, compose_texture, gather_samples,
                                     robust_combine, score_bake, weighted_median)
 from featuretex.errors import InputError
@@ -21,7 +22,7 @@ from featuretex.model.corrections import ViewCorrections, grid_shape
 from featuretex.model.scene_model import SceneModel
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
-from featuretex.scene.colour import srgb_to_linear
+from featuretex.scene.colour import linear_to_srgb, srgb_to_linear
 from featuretex.scene.loaded import load_scene
 
 from scenes import smooth_texture, sphere_scene
@@ -48,9 +49,9 @@ def make_model(tex_lin: np.ndarray, decoder: str = "texel", offset: float | None
         fitted = list(scene.manifest.fitted)
         sizes = [(v.camera.width, v.camera.height) for v in fitted]
         corr = ViewCorrections([v.name for v in fitted], sizes, grid_shape(sizes[0][1], sizes[0][0], 40.0))
-    m = SceneModel(tex_lin.shape[0], 3, decoder, {}, corr)
+    m = SceneModel(tex_lin.shape[0], 2, decoder, {}, corr)
     with torch.no_grad():
-        m.texture.values.copy_(torch.from_numpy(tex_lin.astype(np.float32)))
+        m.texture.colour.copy_(torch.from_numpy(tex_lin.astype(np.float32)))
         if offset is not None:
             out = m.decoder.screen.out
             out.weight.zero_()
@@ -75,9 +76,13 @@ def test_bake_returns_head_exactly_on_seen_texels(sphere):
     ring = (~support) & (dist <= 8)
     assert ring.any() and np.array_equal(res.texture_lin[ring], truth[ri[ring], ci[ring]])
     # the baked texture rendered at held-out views matches pyrender's photos of the true texture
-    # (pyrender filters sRGB bytes, we filter linear values: a small difference, hence 35 dB)
+    # away from silhouettes, where MSAA blends in the background (pyrender filters sRGB bytes, we
+    # filter linear values; measured 55 dB, while a 3 x 3 box blur of the render already drops to 46)
+    for v in scene.manifest.heldout:
+        render, photo, mask = _render_and_photo(scene, gbuffers, res.texture_lin, v)
+        inner = ndimage.binary_erosion(mask, iterations=2)
+        assert metrics.psnr(linear_to_srgb(render), linear_to_srgb(photo), inner) >= 50.0
     scores = score_bake(scene, gbuffers, res.texture_lin)
-    assert scores["baked"]["psnr"] >= 35.0, scores["baked"]
     assert scores["bake_gap_db"] is None
 
 
@@ -172,3 +177,11 @@ def test_score_bake_gap_is_neural_minus_baked(sphere):
     out = score_bake(scene, gbuffers, blurred, neural)
     assert out["bake_gap_db"] == pytest.approx(neural["psnr_tolerant"] - out["baked"]["psnr_tolerant"])
     assert out["bake_gap_db"] > 0.5            # a blurred texture loses to the sharp one
+
+
+def _render_and_photo(scene, gbuffers, tex, view):
+    from featuretex.render import render_texture
+    from featuretex.score import score_mask
+
+    gb = gbuffers[view.name]
+    return render_texture(gb, scene.mesh, tex), scene.photo(view), score_mask(scene, view, gb)
