@@ -11,7 +11,10 @@ rounding) are checked against outside references further down, and one CLI run t
 
 from __future__ import annotations
 
+import contextlib
+import errno
 import hashlib
+import json
 import os
 import shutil
 import subprocess
@@ -39,6 +42,9 @@ from featuretex.scene.mesh import load_mesh
 
 W, H = 64, 48
 ROOT = Path(__file__).resolve().parents[1]
+# a short but complete run (every stage) for the cases that are accepted
+QUICK = ("fit.steps=4", "fit.eval_every=2", "fit.crop=32", "fit.batch=2", "fit.threads=1", "texture.size=64",
+         "report=false", "diagnose.max_grid=32", "diagnose.min_grid=16")
 
 
 # --------------------------------------------------------------------------------------------
@@ -568,7 +574,7 @@ def test_accepted_variants_run_end_to_end(good_scene, tmp_path):
     before = _digest(scene)
     cwd = tmp_path / "cwd"
     cwd.mkdir()
-    p = run_cli(scene, tmp_path / "out", cwd)
+    p = run_cli(scene, tmp_path / "out", cwd, *QUICK)
     assert p.returncode == 0, p.stderr
     assert "Traceback" not in p.stderr + p.stdout
     assert (tmp_path / "out" / "summary.json").is_file()
@@ -600,3 +606,101 @@ def test_decoder_raises_only_input_error_on_damaged_files(tmp_path, good_scene):
                 decode_image(p, "s.yaml", "v", "image")
             except InputError:
                 pass
+
+
+# --------------------------------------------------------------------------------------------
+# Read-only and full output folders
+# --------------------------------------------------------------------------------------------
+@contextlib.contextmanager
+def tmpfs(folder: Path, options: str):
+    """Mount a tmpfs with `options` (e.g. 'size=96k', 'ro') at `folder`; skip the test if not allowed."""
+    folder.mkdir(parents=True, exist_ok=True)
+    r = subprocess.run(["mount", "-t", "tmpfs", "-o", options, "tmpfs", str(folder)], capture_output=True)
+    if r.returncode != 0:
+        pytest.skip(f"cannot mount a tmpfs here ({r.stderr.decode().strip() or 'no permission'})")
+    try:
+        yield folder
+    finally:
+        subprocess.run(["umount", "-l", str(folder)], capture_output=True)
+
+
+def _files_are_whole(out: Path) -> None:
+    """No temporary file of the atomic writer is left, and every output file reads back completely."""
+    for p in out.rglob("*"):
+        if not p.is_file() or p.parent.name == ".hydra" or p.suffix == ".log":
+            continue
+        assert not p.name.startswith("."), f"temporary file left behind: {p}"
+        if p.suffix == ".npy":
+            np.load(p)                     # numpy checks the header against the data length
+        elif p.suffix == ".npz":
+            dict(np.load(p))               # every member's zip CRC is checked on read
+        elif p.suffix == ".png":
+            Image.open(p).load()
+        elif p.suffix == ".json":
+            json.loads(p.read_text())
+
+
+def test_check_output_dir_reports_a_read_only_folder(tmp_path):
+    from featuretex.safety import check_output_dir
+
+    with tmpfs(tmp_path / "ro", "ro,size=64k") as ro:
+        with pytest.raises(OSError) as e:
+            check_output_dir([f"out={ro / 'run'}"])
+        assert e.value.errno == errno.EROFS and e.value.filename == str(ro / "run")
+    check_output_dir([f"out={tmp_path / 'fine' / 'run'}"])
+    assert (tmp_path / "fine" / "run").is_dir() and os.listdir(tmp_path / "fine" / "run") == []
+
+
+
+def test_read_only_output_folder_gives_one_line(good_scene, tmp_path):
+    with tmpfs(tmp_path / "ro", "ro,size=64k") as ro:
+        p = run_cli(good_scene, ro / "run", tmp_path)
+    assert p.returncode == 3, p.stderr
+    lines = [ln for ln in p.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1 and str(ro / "run") in lines[0] and "Traceback" not in p.stderr + p.stdout, p.stderr
+
+
+def test_disk_full_gives_one_line_and_leaves_whole_files(good_scene, tmp_path):
+    """A real full file system (tmpfs of 96 kB: .hydra/ fits, the G-buffers do not), then the same
+    command again with room: it finishes, so nothing left behind was taken for a finished stage."""
+    scene = tmp_path / "scene"
+    shutil.copytree(good_scene, scene)
+    before = _digest(scene)
+    with tmpfs(tmp_path / "disk", "size=96k") as disk:
+        out = disk / "run"
+        p = run_cli(scene, out, tmp_path, *QUICK)
+        assert p.returncode == 3, p.stderr
+        lines = [ln for ln in p.stderr.splitlines() if ln.strip()]
+        assert len(lines) == 1 and str(out) in lines[0], p.stderr
+        assert "Traceback" not in p.stderr + p.stdout
+        _files_are_whole(out)
+        subprocess.run(["mount", "-o", "remount,size=64m", str(disk)], check=True)
+        q = run_cli(scene, out, tmp_path, *QUICK)
+        assert q.returncode == 0, q.stderr
+        assert json.loads((out / "summary.json").read_text())["heldout"]
+        _files_are_whole(out)
+    assert _digest(scene) == before
+
+
+def test_no_space_at_the_atomic_writer_leaves_no_partial_file(good_scene, tmp_path, monkeypatch):
+    """The same without a mount: the atomic writer's fsync fails with ENOSPC on its third file."""
+    import featuretex.atomic as atomic
+    from featuretex.config import FeaturetexConfig
+    from featuretex.pipeline import run_pipeline
+
+    calls = {"n": 0}
+    real_fsync = os.fsync
+
+    def fsync(fd):
+        calls["n"] += 1
+        if calls["n"] >= 3:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        return real_fsync(fd)
+
+    monkeypatch.setattr(atomic.os, "fsync", fsync)
+    out = tmp_path / "run"
+    with pytest.raises(OSError) as e:
+        run_pipeline(FeaturetexConfig(scene=str(good_scene / "scene.yaml"), quiet=True), out)
+    assert e.value.errno == errno.ENOSPC and calls["n"] == 3
+    assert len([p for p in out.rglob("*") if p.is_file()]) == 2   # the two finished writes
+    _files_are_whole(out)
