@@ -19,13 +19,12 @@ DIR/ground_truth/ (true mesh, albedo, per-face error of the scan, defects, true 
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import os
 import shutil
 import sys
 import tempfile
-from dataclasses import asdict, dataclass, replace
+from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import numpy as np
@@ -38,7 +37,7 @@ from featuretex.atomic import atomic_path, write_json
 from featuretex.scene.camera import Camera
 from featuretex.scene.colour import linear_to_srgb, srgb_to_linear, to_uint8
 from featuretex.scene.mesh import load_mesh, make_atlas, smooth_normals
-from featuretex.synth import (dent, dent_profile, fine_print_coverage, orbit_poses, render_views,
+from featuretex.synth import (dent, fine_print_coverage, orbit_poses, render_views,
                               textured_mesh, write_scene)
 
 DEMO_VERSION = "jug-1"   # bump when the generated content changes (names the cache folder)
@@ -458,8 +457,8 @@ def closest_distance(points: np.ndarray, normals: np.ndarray, true_mesh: trimesh
 
 def face_error(scan_v: np.ndarray, scan_f: np.ndarray, true_mesh: trimesh.Trimesh,
                reach: float = 0.015) -> np.ndarray:
-    """(F,) float64 meters per scan face: t such that centroid + t * n lies on the true surface (n = the face's unit outward
-    normal). Positive = the true surface is outside the scan (the scan is sunk in, as in a dent).
+    """(F,) float64 meters per scan face: t such that centroid + t * n lies on the true surface (n = the
+    face's unit outward normal). Positive = the true surface is outside the scan (the scan is sunk in, as in a dent).
     Hits on true faces facing away from n (the far side of a thin wall) are ignored. NaN where it is
     undefined: no true surface within `reach` along the normal, or the hit lies much farther than
     the nearest true surface (|t| > 1.5 x that distance + 0.2 mm: the normal grazes a step or an edge).
@@ -841,7 +840,8 @@ def build_demo(out: str | Path, cfg: DemoConfig = DemoConfig(), log=print) -> Pa
              "faces": faces["dent"]},
             {"type": "smoothed_detail", "what": "raised band flattened over a sector", "centre":
              _surface_point(float(np.mean(s["theta_deg"])), float(np.mean(s["z"])))[0],
-             "theta_deg": s["theta_deg"], "z": s["z"], "radius": None, "depth": s["depth"], "faces": faces["smoothed_detail"]},
+             "theta_deg": s["theta_deg"], "z": s["z"], "radius": None, "depth": s["depth"],
+             "faces": faces["smoothed_detail"]},
             {"type": "hole", "centre": h["centre"], "normal": h["normal"], "radius": h["radius"], "depth": None,
              "faces_removed": h["faces_removed"], "faces": faces["hole"]},
             {"type": "noise", "what": "low-frequency displacement along the normals", "rms": NOISE_RMS,

@@ -394,7 +394,8 @@ def render_views(mesh: trimesh.Trimesh, views: Sequence[ViewSpec], *, lit: bool,
     Returns per view (image (H, W, 3) float32 linear RGB, mask (H, W) bool: coverage >= 1/2); see the
     module doc for what the linear values mean in each mode. `background` is linear RGB.
     `texture_filter`: 'anisotropic' (trilinear + 16x anisotropic: close to a camera pixel averaging
-    its footprint), 'mipmap' (trilinear only), 'linear' or 'nearest' (no mipmaps). `lit=True`: `soft_lights(light_seed)` + `ambient`, glaze-like dielectric specular
+    its footprint), 'mipmap' (trilinear only), 'linear' or 'nearest' (no mipmaps).
+    `lit=True`: `soft_lights(light_seed)` + `ambient`, glaze-like dielectric specular
     (F0 = 0.04 in pyrender) with `roughness`; lights are fixed in the world frame. `lights`, when
     given, replaces the soft lights: (direction the light travels (3,), intensity) pairs.
     Pinhole only: a camera with distortion raises ValueError. One OffscreenRenderer serves all views.

@@ -176,8 +176,9 @@ def test_other_defects_are_as_bad_as_asked(truth):
     c, n = truth["centroids"], truth["normals"]
     theta = np.degrees(np.arctan2(c[:, 1], c[:, 0]))
     z0, z1 = dfs["smoothed_detail"]["z"]
+    t0, t1 = dfs["smoothed_detail"]["theta_deg"]
     kept = ((c[:, 2] > z0 + 0.002) & (c[:, 2] < z1 - 0.002) & (n[:, 2] < 0.5) & (np.hypot(c[:, 0], c[:, 1]) > 0.04)
-            & ((theta < dfs["smoothed_detail"]["theta_deg"][0] - 15) | (theta > dfs["smoothed_detail"]["theta_deg"][1] + 15)))
+            & ((theta < t0 - 15) | (theta > t1 + 15)))
     assert kept.sum() > 100 and np.nanmedian(np.abs(fe[kept])) < 0.0008
     assert np.nanmedian(fe[band]) > np.nanmedian(fe[kept]) + 0.0015
     hole = dfs["hole"]
