@@ -56,7 +56,9 @@ class View:
 
     def to_camera(self, pts_world: np.ndarray) -> np.ndarray:
         """(N, 3) world points -> (N, 3) camera-space points."""
-        return np.asarray(pts_world, dtype=np.float64) @ self.R.T + self.t
+        # einsum, not @: this memory-bound product was 5-7x slower through OpenBLAS's threads on a
+        # busy 2-core machine (benchmarks/gbuffer.py)
+        return np.einsum("nk,jk->nj", np.asarray(pts_world, dtype=np.float64), self.R) + self.t
 
 
 @dataclass(frozen=True)
