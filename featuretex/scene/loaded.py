@@ -74,7 +74,7 @@ def load_scene(path: str | Path) -> Scene:
     return scene
 
 
-def _header_size(p: Path, file: str, view: str, fld: str) -> tuple[int, int] | None:
+def _header_size(p: Path) -> tuple[int, int] | None:
     """(width, height) of the upright image from its header alone, or None if Pillow cannot tell."""
     from PIL import Image
 
@@ -101,7 +101,7 @@ def check_images(man: Manifest, keep_bytes: int = PHOTO_CACHE_BYTES) -> dict[str
         for fld, p in (("image", v.image), ("mask", v.mask)):
             if p is None:
                 continue
-            size = _header_size(p, file, v.name, fld)
+            size = _header_size(p)
             if size is not None and size != want:
                 raise input_error(file, f"'{p.name}' is {size[0]}x{size[1]} (upright) but camera "
                                   f"'{v.camera.id}' is {want[0]}x{want[1]}", view=v.name, field=fld,
