@@ -213,7 +213,7 @@ def _counts_html(rows: list[JobRow]) -> str:
 def _row_html(r: JobRow) -> str:
     name = f'<a href="{esc(r.report)}">{esc(r.scan)}</a>' if r.report else esc(r.scan)
     logl = f' · <a href="{esc(r.log)}">log</a>' if r.log else ""
-    sub = f'<div class="note">{esc(r.job)}{logl}</div>'
+    sub = f'<div class="note">folder {esc(r.job)}{logl}</div>'
     if r.status == "failed":
         return (f"<tr><td>{name}{sub}</td><td>{_chip('failed')}</td>"
                 f'<td colspan="7">{esc(r.error)}</td></tr>')
@@ -233,7 +233,7 @@ def _row_html(r: JobRow) -> str:
 
 
 def batch_html(rows: list[JobRow], sweep_dir: Path) -> str:
-    head = ("<tr><th>scan</th><th>verdict</th><th class=\"n\">not photographed</th>"
+    head = ("<tr><th>scan</th><th>verdict</th><th class=\"n\">uncovered</th>"
             "<th class=\"n\">geometry-limited</th><th class=\"n\">texture-limited</th>"
             "<th class=\"n\">classical dB</th><th class=\"n\">baked dB</th><th class=\"n\">neural dB</th>"
             "<th class=\"n\">time</th></tr>")

@@ -273,3 +273,11 @@ def test_report_of_a_partial_run_names_what_is_missing(complete_run, tmp_path):
 def test_report_of_an_empty_folder_still_writes(tmp_path):
     page = _parse(write_report(tmp_path))
     assert describe(None)[0] in page.text and "summary.json" in page.text
+
+
+def test_report_survives_odd_summary_values(tmp_path):
+    (tmp_path / "summary.json").write_text(json.dumps({
+        "verdict": "ready", "reasons": "not a list", "heldout": {"neural": "oops"}, "timings_s": [1, 2],
+        "heldout_per_view": {"neural": {"v0": None}}, "areas": {"uncovered": "x"}}))
+    page = _parse(write_report(tmp_path))
+    assert describe("ready")[0] in page.text and "verdict" in page.ids

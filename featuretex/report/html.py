@@ -11,7 +11,7 @@ import logging
 import math
 import time
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 import yaml
@@ -87,6 +87,7 @@ def gain_html(run: RunDir) -> str:
 def verdict_html(run: RunDir) -> str:
     word, what, colour = describe(run.verdict)
     reasons = run.summary.get("reasons") or []
+    reasons = reasons if isinstance(reasons, list) else [reasons]
     items = "".join(f"<li>{esc(r)}</li>" for r in reasons)
     rlist = f"<ul>{items}</ul>" if items else ""
     code = f' <span class="chip">{esc(run.verdict)}</span>' if run.verdict else ""
@@ -338,12 +339,26 @@ def missing_html(run: RunDir) -> str:
 # ---------------------------------------------------------------------------------------------
 # page
 # ---------------------------------------------------------------------------------------------
+SECTIONS: tuple[tuple[str, Callable[[RunDir], str]], ...] = (
+    ("header", header_html), ("verdict", verdict_html), ("heldout", heldout_html), ("errormap", errormap_html),
+    ("turntable", turntable_html), ("curves", curves_html), ("textures", textures_html),
+    ("timings", timings_html), ("config", config_html), ("missing", missing_html))
+
+
+def _section(name: str, draw: Callable[[RunDir], str], run: RunDir) -> str:
+    """One section's HTML; a section that fails on odd data says so instead of losing the report."""
+    try:
+        return draw(run)
+    except Exception as e:
+        log.warning("report: section '%s' not drawn (%s: %s)", name, type(e).__name__, e)
+        return (f'<section id="{name}"><h2>{esc(name)}</h2>'
+                f"{_absent(f'this part could not be drawn: {type(e).__name__}: {e}')}</section>")
+
+
 def render_page(run: RunDir) -> str:
-    name = Path(run.summary["scene"]).parent.name if run.summary.get("scene") else run.path.name
+    name = Path(str(run.summary["scene"])).parent.name if run.summary.get("scene") else run.path.name
     word = describe(run.verdict)[0]
-    body = "".join([header_html(run), verdict_html(run), heldout_html(run), errormap_html(run),
-                    turntable_html(run), curves_html(run), textures_html(run), timings_html(run),
-                    config_html(run), missing_html(run)])
+    body = "".join(_section(name, draw, run) for name, draw in SECTIONS)
     return ("<!doctype html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             '<meta name="viewport" content="width=device-width, initial-scale=1">'
             "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; img-src data: 'self'; "
