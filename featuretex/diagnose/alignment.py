@@ -60,6 +60,12 @@ def field_at(field: np.ndarray, xy: np.ndarray, width: int, height: int) -> np.n
     return sample_image(field, g)
 
 
+def global_shift(field: np.ndarray, xy: np.ndarray, width: int, height: int) -> np.ndarray:
+    """(2,) px median of a view's field over where it sees the surface: the part of the
+    misregistration shared by the whole view (calibration), not local to some surface."""
+    return np.median(field_at(field, xy, width, height), axis=0).astype(np.float64) if len(xy) else np.zeros(2)
+
+
 def projection_jacobian(R: np.ndarray, pc: np.ndarray, fx: float, fy: float) -> np.ndarray:
     """(N, 2, 3) d(pixel)/d(world point) of a pinhole camera at camera-space points pc (N, 3)."""
     x, y, z = pc[:, 0], pc[:, 1], pc[:, 2]

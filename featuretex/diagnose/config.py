@@ -27,6 +27,7 @@ class DiagnoseConfig:
     patch: int = 5                   # patch edge, texels of the working grid (odd)
     min_patch_fill: float = 0.6      # fraction of a patch that must be seen for its NCC to count
     min_contrast: float = 0.012      # patch std (sRGB grey) below which a patch has no texture to judge
+    trim: float = 0.25               # share of the worst views' scores dropped per texel (highlights, occlusion)
     # displacement sweep along the normal (plane sweep, as multi-view stereo does)
     sweep_fraction: float = 0.03     # half range, fraction of the object size
     sweep_units: float = 0.0         # half range in scene units (> 0 overrides the fraction)
@@ -34,6 +35,7 @@ class DiagnoseConfig:
     aggregate: int = 5               # box (texels) over which sweep scores are pooled before the argmax
     sweep_min_gain: float = 0.04     # NCC gain of the best offset over offset 0 that counts as confident
     sweep_min_score: float = 0.3     # and the best offset's NCC must reach this
+    sweep_min_views: int = 5         # and at least this many views must see the texel
     # alignment evidence (the fit's per-view fields)
     align_remove_global: bool = True  # subtract each view's median shift (calibration) before local use
     # tolerances of the per-texel fields (0.5 is reached at the tolerance)

@@ -42,9 +42,12 @@ def _bbox(idx: np.ndarray, D: int, margin: int) -> tuple[slice, slice]:
             slice(max(int(c.min()) - margin, 0), min(int(c.max()) + margin + 1, D)))
 
 
-def loo_ncc(views: list[Samples], D: int, *, patch: int, min_fill: float, min_contrast: float
-            ) -> tuple[np.ndarray, np.ndarray]:
+def loo_ncc(views: list[Samples], D: int, *, patch: int, min_fill: float, min_contrast: float,
+            trim: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
     """Per texel, the weighted mean over views of NCC(view patch, leave-one-out mean patch).
+
+    trim > 0: instead, the plain mean after dropping that fraction of the lowest view scores
+    (a highlight or an occlusion that spoils one view does not drag the texel down).
 
     views: scalar values (sRGB luma). Returns (score (D*D,) float32, NaN where no view pair
     judged it; weight (D*D,) float32, the summed weights of the views that did). A view's NCC
@@ -58,9 +61,10 @@ def loo_ncc(views: list[Samples], D: int, *, patch: int, min_fill: float, min_co
         W[v.idx] += v.weight
     score = np.zeros(D * D)
     wsum = np.zeros(D * D)
+    per_view = np.full((len(views), D * D), np.nan, np.float32) if trim > 0 else None
     S2, W2 = S.reshape(D, D), W.reshape(D, D)
     margin = patch // 2 + 1
-    for v in views:
+    for j, v in enumerate(views):
         if len(v.idx) == 0:
             continue
         rs, cs = _bbox(v.idx, D, margin)
@@ -89,8 +93,27 @@ def loo_ncc(views: list[Samples], D: int, *, patch: int, min_fill: float, min_co
         ok_l = ok.ravel()[local]
         score[v.idx[ok_l]] += v.weight[ok_l] * ncc.ravel()[local][ok_l]
         wsum[v.idx[ok_l]] += v.weight[ok_l]
+        if per_view is not None:
+            per_view[j, v.idx[ok_l]] = ncc.ravel()[local][ok_l]
+    if per_view is not None:
+        return trimmed_mean(per_view, trim)
     out = np.where(wsum > 0, score / np.maximum(wsum, 1e-30), np.nan)
     return out.astype(np.float32), wsum.astype(np.float32)
+
+
+def trimmed_mean(values: np.ndarray, trim: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per column of values (V, N) (NaN = no value): mean after dropping floor(trim * n) of the
+    n lowest values, and the number kept (float32); NaN / 0 for empty columns."""
+    n = np.isfinite(values).sum(axis=0)
+    srt = np.sort(np.where(np.isfinite(values), values, np.inf), axis=0)      # lowest first, gaps last
+    cs = np.cumsum(np.where(np.isfinite(srt), srt, 0.0), axis=0, dtype=np.float64)
+    cs = np.concatenate([np.zeros((1, values.shape[1])), cs], axis=0)
+    drop = np.floor(trim * n).astype(np.int64)
+    cols = np.arange(values.shape[1])
+    kept = n - drop
+    total = cs[n, cols] - cs[drop, cols]
+    out = np.where(kept > 0, total / np.maximum(kept, 1), np.nan)
+    return out.astype(np.float32), kept.astype(np.float32)
 
 
 def consensus(views: list[Samples], n_texels: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -19,7 +19,7 @@ import numpy as np
 
 from featuretex.bake.sampling import sample_texture
 from featuretex.diagnose import classify as C
-from featuretex.diagnose.alignment import alignment_evidence, field_at, parse_corrections
+from featuretex.diagnose.alignment import alignment_evidence, field_at, global_shift, parse_corrections
 from featuretex.diagnose.config import DiagnoseConfig
 from featuretex.diagnose.consistency import Samples, consensus, loo_ncc
 from featuretex.diagnose.exposure import exposure
@@ -120,7 +120,7 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     cls_t = up(cls.astype(np.float32), "max")
     cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
     extra = {k: up(work[k]) for k in ("consistency", "consistency_aligned", "residual", "align_misplacement",
-                                      "align_offset", "sweep_gain") if k in work}
+                                      "align_offset", "sweep_gain", "sweep_score") if k in work}
     figures = {"working_grid": D, "texture_size": T, "footprint_ratio": float(ratio), "views": len(obs),
                "sweep_half_range": float(half), "geometry_tol": float(geo_tol), "fix_tol": float(fix_tol),
                "geometry_misplacement_p90": ev.geometry_misplacement, "fit_tail_drop": progress.tail_drop,
@@ -148,8 +148,13 @@ def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray,
         return out
 
     half = cfg.sweep_units if cfg.sweep_units > 0 else cfg.sweep_fraction * size
+    for o in obs:      # judge the surface with each view's calibration shift taken out
+        f = o.correction.field if o.correction is not None else None
+        if f is not None and cfg.align_remove_global:
+            o.shift = global_shift(f, o.xy, o.view.camera.width, o.view.camera.height)
     sw = sweep(obs, pos, nrm, D, half, cfg)
-    out.update(sweep_offset=shape(sw.displacement), sweep_gain=shape(sw.gain), consistency=shape(sw.score0))
+    out.update(sweep_offset=shape(sw.displacement), sweep_gain=shape(sw.gain), sweep_score=shape(sw.best_score),
+                   consistency=shape(sw.score0))
 
     al = alignment_evidence(obs, pos, nrm, N, remove_global=cfg.align_remove_global, ridge=0.1)
     aligned_xy = {}
@@ -161,7 +166,7 @@ def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray,
         out["global_shift_units"] = np.float32(np.median(shifts) * fp)
         aligned_xy = aligned_positions(obs)
         views = [Samples(o.idx, o.sample_grey(aligned_xy[o.view.name]), o.cos) for o in obs]
-        s, _ = loo_ncc(views, D, patch=cfg.patch, min_fill=cfg.min_patch_fill, min_contrast=cfg.min_contrast)
+        s, _ = loo_ncc(views, D, patch=cfg.patch, min_fill=cfg.min_patch_fill, min_contrast=cfg.min_contrast, trim=cfg.trim)
         out["consistency_aligned"] = shape(s)
 
     # consensus of the (aligned, colour-corrected) photos against the texture, in sRGB

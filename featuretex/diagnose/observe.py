@@ -3,7 +3,7 @@ colour-corrected to the fit's common albedo scale and low-passed to the grid's s
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import ndimage
@@ -34,6 +34,8 @@ class Observation:
     colour: np.ndarray     # (H, W, 3) float32 linear photo, colour-corrected and low-passed
     grey: np.ndarray       # (H, W) float32 sRGB-encoded luma of `colour`
     correction: ViewCorrection | None
+    shift: np.ndarray = field(default_factory=lambda: np.zeros(2))  # (2,) px whole-view registration
+                                                                     # error (calibration), added to projections
 
     @property
     def focal(self) -> float:

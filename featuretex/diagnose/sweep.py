@@ -52,13 +52,32 @@ def sweep(obs: list[Observation], pos: np.ndarray, nrm: np.ndarray, D: int, half
         for o, pc, nc in cams:
             q = pc + t * nc
             front = q[:, 2] > 1e-9
-            xy = o.view.camera.project(np.where(front[:, None], q, pc))
+            xy = o.view.camera.project(np.where(front[:, None], q, pc)) + o.shift
             views.append(Samples(idx=o.idx[front], value=o.sample_grey(xy[front]), weight=o.cos[front]))
-        s, w = loo_ncc(views, D, patch=cfg.patch, min_fill=cfg.min_patch_fill, min_contrast=cfg.min_contrast)
+        s, w = loo_ncc(views, D, patch=cfg.patch, min_fill=cfg.min_patch_fill, min_contrast=cfg.min_contrast, trim=cfg.trim)
         if k == K // 2:
             score0 = s
         pooled[k] = pool(s, w, D, cfg.aggregate)
-    return decide(ts, pooled, score0, cfg)
+    res = decide(ts, pooled, score0, cfg)
+    views_at = np.zeros(D * D)
+    for o in obs:
+        views_at[o.idx] += 1
+    # with few views, some offset agrees by chance: too little to measure an offset with
+    res.confident &= views_at >= cfg.sweep_min_views
+    res.confident = coherent(res.best, res.confident, D, float(ts[1] - ts[0]), cfg.aggregate)
+    return res
+
+
+def coherent(best: np.ndarray, confident: np.ndarray, D: int, step: float, size: int) -> np.ndarray:
+    """(D*D,) bool: confident texels most of whose neighbours (size x size box) are confident too
+    and agree with them within 1.5 offset steps. A real surface offset is smooth; offsets that
+    only chance texture matches produce are scattered."""
+    c = confident.reshape(D, D).astype(np.float32)
+    b = np.where(confident, best, 0.0).reshape(D, D)
+    share = box_mean(c, size)
+    mean = box_mean(b * c, size) / np.maximum(share, 1e-6)
+    ok = (share >= 0.5) & (np.abs(b - mean) <= 1.5 * step)
+    return confident & ok.ravel()
 
 
 def pool(score: np.ndarray, weight: np.ndarray, D: int, size: int) -> np.ndarray:
