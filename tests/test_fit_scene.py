@@ -30,13 +30,15 @@ SHORT = dict(steps=8, eval_every=4, checkpoint_every=1000, crop=48, batch=2, thr
 @pytest.fixture(scope="module")
 def tiny(tmp_path_factory):
     """A unit sphere with a smooth known texture, 12 views at 160 x 120 (every 4th held out),
-    rendered unlit with trilinear mipmapping (a camera pixel averages the surface it sees)."""
+    rendered unlit with trilinear mipmapping (a camera pixel averages the surface it sees) in front
+    of a mid-grey backdrop (as a turntable studio has; pyrender's 4x MSAA blends it into the
+    silhouette pixels, which the scores include)."""
     folder = tmp_path_factory.mktemp("tiny")
     mesh = synth.textured_sphere(1.0, smooth_texture(128), n_lat=32, n_lon=64)
     w, h = 160, 120
     cam = Camera("cam0", "pinhole", w, h, 1.1 * w, 1.1 * w, (w - 1) / 2, (h - 1) / 2)
     views = [(f"v{k:03d}", cam, p) for k, p in enumerate(synth.orbit_poses(12, 3.2, [-25.0, 25.0], seed=0))]
-    shots = synth.render_views(mesh, views, lit=False, texture_filter="mipmap")
+    shots = synth.render_views(mesh, views, lit=False, texture_filter="mipmap", background=(0.33, 0.33, 0.34))
     path = synth.write_scene(folder, mesh, [s[0] for s in shots], [s[1] for s in shots], views,
                              [k % 4 == 3 for k in range(12)], image_format="png", seed=0)
     scene = load_scene(path)
@@ -54,13 +56,17 @@ def _heldout_psnr(scene, gbuffers, render) -> float:
     return metrics.aggregate(scores, weights)["psnr"]
 
 
-def test_fit_reaches_35_db_on_heldout_views(tiny, tmp_path):
+def test_fit_from_a_flat_start_reaches_35_db_on_heldout_views(tiny, tmp_path):
+    """The fit has to learn the texture: it starts from one flat colour (the mean of the photos),
+    not from the baseline bake, and must reproduce held-out views it never saw to >= 35 dB.
+    A flat start needs texel moves of up to ~0.4, hence the larger texture learning rate."""
     scene, gbuffers, base = tiny
-    cfg = FitConfig(steps=150, eval_every=50, crop=64, batch=4, edge_erode_px=0, threads=2)
-    res = fit_scene(scene, gbuffers, base.texture_lin, base.seen, cfg, tmp_path, seed=0, quiet=True,
-                    config_hash="tiny")
+    flat = np.full_like(base.texture_lin, base.texture_lin[base.seen].mean(0))
+    cfg = FitConfig(steps=150, eval_every=50, crop=64, batch=4, edge_erode_px=0, lr=3e-2, threads=1)
+    res = fit_scene(scene, gbuffers, flat, base.seen, cfg, tmp_path, seed=0, quiet=True, config_hash="tiny")
     # reference: the held-out photos pyrender made from the true texture
     neural = _heldout_psnr(scene, gbuffers, lambda v: render_view(res.model, scene, gbuffers[v.name], v))
+    assert res.history["heldout_psnr"][0] < 20.0      # the flat start is far from the answer
     assert neural >= 35.0, neural
     for name in ("model.pt", "history.json", "corrections.npz"):
         assert (tmp_path / "fit" / name).is_file()

@@ -22,6 +22,7 @@ class FitConfig:
     # model
     channels: int = 8                # latent feature channels (read by the screen-space decoder)
     latent_scale: int = 4            # latent layer has texture_size / latent_scale texels per side
+    mip: bool = True                 # trilinear mip filtering by pixel footprint (False = bilinear)
     texture_size: int = 0            # colour-layer texels per side; 0 = the baseline's size (photo footprint)
     decoder: str = "texel-screen"    # decoder plugin name ("texel" = bakeable head only)
     hidden: int = 24                 # screen-space decoder width

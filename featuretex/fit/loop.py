@@ -50,6 +50,7 @@ class FitResult:
     corrections: dict[str, np.ndarray]
     timings: dict[str, float]
     stopped: str = "steps"     # "steps" | "plateau" | "loaded"
+    stats: dict[str, float] = field(default_factory=dict)  # this session: steps, pixels fitted / rendered
 
 
 @dataclass
@@ -82,7 +83,7 @@ def build_model(cfg: FitConfig, init_texture_lin: np.ndarray, names: list[str], 
     W = max(s[0] for s in sizes)
     corr = ViewCorrections(names, sizes, grid_shape(H, W, cfg.align_cell_px), reference)
     kwargs = {"hidden": cfg.hidden, "layers": cfg.layers, "bound": cfg.residual_bound}
-    model = SceneModel(size, cfg.channels, cfg.decoder, kwargs, corr, cfg.latent_scale)
+    model = SceneModel(size, cfg.channels, cfg.decoder, kwargs, corr, cfg.latent_scale, cfg.mip)
     model.texture.initialise(init_texture_lin, rng)
     return model
 
@@ -129,6 +130,18 @@ def forward_flops_per_pixel(model: SceneModel) -> dict[str, int]:
     return out
 
 
+def train_flops(model: SceneModel, pixels_rendered: float, pixels_covered: float) -> float:
+    """Dense arithmetic of training steps that rendered `pixels_rendered` crop pixels, of which
+    `pixels_covered` show the surface: forward (screen decoder on every crop pixel, SSIM's five
+    11-tap separable blurs of 3 channels, head and texel filtering on surface pixels) times 3 for
+    forward + backward (common practice: a backward pass costs about twice the forward)."""
+    fl = forward_flops_per_pixel(model)
+    ssim = 5 * 3 * 2 * 11 * 2
+    per_rendered = fl.get("screen", 0) + ssim
+    per_covered = fl["head"] + fl["sampling"]
+    return 3.0 * (per_rendered * pixels_rendered + per_covered * pixels_covered)
+
+
 def describe(model: SceneModel) -> str:
     fl = forward_flops_per_pixel(model)
     tex = model.texture
@@ -145,7 +158,7 @@ def describe(model: SceneModel) -> str:
 
 def train_step(model: SceneModel, opt: torch.optim.Optimizer, views: list[ViewData], sampler: CropSampler,
                cfg: FitConfig, step: int) -> tuple[float, int]:
-    """One Adam step on a batch of crops. Returns (loss, object pixels fitted)."""
+    """One Adam step on a batch of crops. Returns (loss, object pixels in the loss)."""
     f = lr_factor(step, cfg)
     for g in opt.param_groups:
         g["lr"] = g["base_lr"] * f
@@ -344,6 +357,7 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     timings = {"prepare_s": t_prepare, "train_s": 0.0, "eval_s": 0.0}
     session_t0 = time.perf_counter()
     hook_s = 0.0
+    stats = {"steps": 0, "pixels_fitted": 0, "pixels_rendered": 0}
 
     def fit_seconds() -> float:
         return state.elapsed_s + (time.perf_counter() - session_t0) - hook_s
@@ -383,8 +397,11 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
                 do_eval()
             while state.step < cfg.steps:
                 t = time.perf_counter()
-                loss, _ = train_step(model, opt, train_views, sampler, cfg, state.step)
+                loss, n_px = train_step(model, opt, train_views, sampler, cfg, state.step)
                 timings["train_s"] += time.perf_counter() - t
+                stats["steps"] += 1
+                stats["pixels_fitted"] += n_px
+                stats["pixels_rendered"] += cfg.batch * sampler.size ** 2
                 if not math.isfinite(loss):
                     raise RuntimeError(f"fit diverged at step {state.step} (loss {loss}); lower fit.lr")
                 state.step += 1
@@ -419,4 +436,5 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     if ck_path.exists():
         ck_path.unlink()
     model.eval()
-    return FitResult(model=model, history=state.history, corrections=corr, timings=timings, stopped=stopped)
+    return FitResult(model=model, history=state.history, corrections=corr, timings=timings, stopped=stopped,
+                     stats=stats)

@@ -36,8 +36,9 @@ class Render:
 
 class SceneModel(nn.Module):
     def __init__(self, size: int, channels: int, decoder: str, decoder_kwargs: dict[str, Any],
-                 corrections: ViewCorrections | None = None, latent_scale: int = 4):
+                 corrections: ViewCorrections | None = None, latent_scale: int = 4, mip: bool = True):
         super().__init__()
+        self.mip = bool(mip)  # False: plain bilinear lookups of level 0 (for measuring what mipmapping gains)
         self.texture = FeatureTexture(size, channels, latent_scale)
         self.latent_scale = int(latent_scale)
         cls = plugins.load("decoders", decoder)
@@ -50,11 +51,12 @@ class SceneModel(nn.Module):
         B, h, w = batch.cover.shape
         C = self.texture.channels
         flat = torch.nonzero(batch.cover.reshape(-1), as_tuple=True)[0]
+        rho = batch.rho if self.mip else None
         if self.decoder.screen is None:
-            colour = self.decoder.head(self.texture.sample_colour(batch.uv, batch.rho))   # (N, 3)
+            colour = self.decoder.head(self.texture.sample_colour(batch.uv, rho))   # (N, 3)
             dense = colour.new_zeros(B * h * w, 3).index_copy(0, flat, colour)
             return Render(colour=dense.reshape(B, h, w, 3).permute(0, 3, 1, 2).contiguous(), residual=None)
-        feat = self.texture.sample(batch.uv, batch.rho)                 # (N, 3 + C)
+        feat = self.texture.sample(batch.uv, rho)                       # (N, 3 + C)
         colour = self.decoder.head(feat[:, :3])                         # (N, 3)
         dense = feat.new_zeros(B * h * w, C + 3).index_copy(0, flat, torch.cat([feat[:, 3:], colour], 1))
         img = dense.reshape(B, h, w, C + 3).permute(0, 3, 1, 2)
@@ -67,7 +69,7 @@ class SceneModel(nn.Module):
     def meta(self) -> dict[str, Any]:
         """Plain-typed description (loadable with torch.load(weights_only=True))."""
         c = self.corrections
-        return {"size": self.texture.size, "channels": self.texture.channels, "latent_scale": self.latent_scale,
+        return {"size": self.texture.size, "channels": self.texture.channels, "latent_scale": self.latent_scale, "mip": self.mip,
                 "decoder": self.decoder_name,
                 "decoder_kwargs": self.decoder_kwargs,
                 "views": list(c.names) if c is not None else [],
@@ -82,7 +84,7 @@ class SceneModel(nn.Module):
             corr = ViewCorrections(meta["views"], [tuple(s) for s in meta["image_sizes"]],
                                    tuple(meta["grid_hw"]), meta["reference"])
         return cls(meta["size"], meta["channels"], meta["decoder"], meta["decoder_kwargs"], corr,
-                   meta.get("latent_scale", 4))
+                   meta.get("latent_scale", 4), meta.get("mip", True))
 
     def view_index(self, name: str) -> int | None:
         if self.corrections is None or name not in self.corrections.names:
