@@ -49,8 +49,9 @@ def test_regions_match_scikit_image_regionprops():
     cls[ring] = UNCOVERED                              # a ring: its label must sit on the ring
     cls[5:8, 70:73] = TEXTURE                          # 9 texels of 8640: just above 0.1 %, kept
     cls[80:82, 5:6] = TEXTURE                          # 2 texels: dropped (< 0.1 % of the surface)
+    cls[40:44, 5:9] = GEOMETRY                         # a second, smaller block
     f = _fields(cls)
-    got = errormap.find_regions(f, top=10)
+    got = errormap.find_regions(f, per_class=10)
     surface = float((cls != OFF).sum())
     want = []
     for code, kind in errormap.KINDS.items():
@@ -62,6 +63,8 @@ def test_regions_match_scikit_image_regionprops():
     assert [(r.kind, r.box) for r in got] == [(k, b) for k, b, _ in want]
     assert [r.share for r in got] == pytest.approx([s for _, _, s in want], rel=1e-12)
     assert got[0].kind == "uncovered"
+    lead = errormap.find_regions(f, per_class=1, first="geometry")   # the verdict's class leads
+    assert [r.kind for r in lead] == ["geometry", "uncovered", "texture"] and lead[0].box == (10, 10, 30, 40)
     blk = next(r for r in got if r.kind == "geometry")
     assert blk.score == pytest.approx(float(f.geometry[10:30, 10:40].mean()), rel=1e-6)
     for r in got:

@@ -90,14 +90,44 @@ def classify(coverage: np.ndarray, geometry: np.ndarray, texture: np.ndarray, su
     return cls
 
 
-def load_fields(npz: Path, layout: Layout | None = None, min_views: int = 2) -> ErrorFields:
-    """Read error_map.npz; `layout` (same T) supplies texel areas and positions."""
+def reduction(size: int, most: int = 512) -> int:
+    """Block edge k (a divisor of size) that brings a size x size map to at most `most` per side
+    (1 when size already fits or has no such divisor): the report needs no more to be read."""
+    k = 1
+    while size // k > most and size % (2 * k) == 0:
+        k *= 2
+    return k
+
+
+def _block_mean(a: np.ndarray, k: int) -> np.ndarray:
+    """(T, T) -> (T/k, T/k) mean of the finite values of each k x k block (NaN where none)."""
+    if k == 1:
+        return a
+    b = a.reshape(a.shape[0] // k, k, a.shape[1] // k, k)
+    ok = np.isfinite(b)
+    n = ok.sum(axis=(1, 3))
+    tot = np.where(ok, b, 0.0).sum(axis=(1, 3))
+    return np.where(n > 0, tot / np.maximum(n, 1), np.nan).astype(np.float32)
+
+
+def _block_worst(cls: np.ndarray, k: int) -> np.ndarray:
+    """(T, T) classes -> (T/k, T/k): the most severe class of each block (class codes are ordered by
+    severity in featuretex.diagnose.classify, as the diagnosis pools them)."""
+    if k == 1:
+        return cls
+    return cls.reshape(cls.shape[0] // k, k, cls.shape[1] // k, k).max(axis=(1, 3))
+
+
+def load_fields(npz: Path, layout: Layout | None = None, min_views: int = 2, k: int = 1) -> ErrorFields:
+    """Read error_map.npz, pooled over k x k texel blocks; `layout` (at the pooled size) supplies
+    texel areas and positions."""
     with np.load(npz) as z:
-        geo = np.asarray(z["geometry"], np.float32)
-        tex = np.asarray(z["texture"], np.float32)
-        cov = np.asarray(z["coverage"], np.float32)
-        disp = np.asarray(z["displacement"], np.float32) if "displacement" in z.files else np.full(geo.shape, np.nan)
-        cls = np.asarray(z["cls"], np.uint8) if "cls" in z.files else None
+        geo = _block_mean(np.asarray(z["geometry"], np.float32), k)
+        tex = _block_mean(np.asarray(z["texture"], np.float32), k)
+        cov = _block_mean(np.asarray(z["coverage"], np.float32), k)
+        disp = _block_mean(np.asarray(z["displacement"], np.float32), k) if "displacement" in z.files \
+            else np.full(geo.shape, np.nan, np.float32)
+        cls = _block_worst(np.asarray(z["cls"], np.uint8), k) if "cls" in z.files else None
     lay = layout if layout is not None and layout.surface.shape == geo.shape else None
     if cls is None:
         surface = lay.surface if lay is not None else np.ones(geo.shape, bool)
@@ -107,9 +137,11 @@ def load_fields(npz: Path, layout: Layout | None = None, min_views: int = 2) -> 
     return ErrorFields(cls, geo, tex, disp, weight, lay.position if lay is not None else None, lay is not None)
 
 
-def find_regions(f: ErrorFields, *, top: int = 5, min_share: float = 0.001) -> list[Region]:
-    """The `top` largest 8-connected regions of each problem class covering >= min_share of the
-    surface, largest first over all classes."""
+def find_regions(f: ErrorFields, *, per_class: int = 3, min_share: float = 0.001,
+                 first: str | None = None) -> list[Region]:
+    """Up to `per_class` largest 8-connected regions of each problem class covering >= min_share of
+    the surface: the `first` class (the one the verdict is about) leading, then the rest largest
+    first, so a vast uncovered area cannot crowd out the geometry error a verdict names."""
     total = float(f.weight.sum()) or 1.0
     T = f.cls.shape[0]
     found: list[Region] = []
@@ -135,8 +167,10 @@ def find_regions(f: ErrorFields, *, top: int = 5, min_share: float = 0.001) -> l
             found.append(Region(kind, share, float(w.sum()) if f.area_known else None, score, (r0, c0, r1, c1),
                                 ((c0 + c1) / 2 / T, 1.0 - (r0 + r1) / 2 / T), centre,  # type: ignore[arg-type]
                                 float(np.median(d)) if len(d) else float("nan"), m))
-    found.sort(key=lambda r: -r.share)
-    return found[:top]
+    kept: list[Region] = []
+    for kind in KINDS.values():
+        kept += sorted((r for r in found if r.kind == kind), key=lambda r: -r.share)[:per_class]
+    return sorted(kept, key=lambda r: (r.kind != first, -r.share))
 
 
 def painted(f: ErrorFields) -> np.ndarray:

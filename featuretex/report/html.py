@@ -18,6 +18,7 @@ import yaml
 from PIL import Image
 
 from featuretex.atomic import write_text
+from featuretex.diagnose.verdict import SYMBOLS
 from featuretex.report import errormap, plots
 from featuretex.report.inline import data_uri, esc, file_uri, image_png, num, percent, seconds, thumbnail_uri
 from featuretex.report.rundir import ARTEFACTS, METHOD_LABELS, METHODS, RunDir, read_run_dir
@@ -27,13 +28,12 @@ from featuretex.report.verdicts import describe
 log = logging.getLogger("featuretex")
 
 TURNTABLE_FILE = "turntable.png"        # animated PNG beside the report
-TURNTABLE_FRAMES, TURNTABLE_PX, STILLS = 24, 400, 6
+TURNTABLE_FRAMES, TURNTABLE_PX, STILLS = 24, 320, 6   # software GL: the MSAA read-back costs per pixel
 TEXTURE_THUMB_PX = 512
-UNIT_SYMBOL = {"meter": "m", "metre": "m", "millimeter": "mm", "millimetre": "mm", "centimeter": "cm",
-               "centimetre": "cm", "inch": "in", "foot": "ft"}
 METRICS = (("psnr", "PSNR", "dB"), ("ssim", "SSIM", ""),
            ("psnr_gaincomp", "PSNR, exposure removed", "dB"),
            ("psnr_tolerant", "PSNR, ±3 px tolerant", "dB"))
+VERDICT_CLASS = {"rescan": "uncovered", "fix-geometry": "geometry", "refine-texture": "texture"}
 SHORT_LABELS = {"baseline": "Classical", "baked": "Baked", "neural": "Neural"}
 
 
@@ -48,10 +48,18 @@ def _stage_of(rel: str) -> str:
     return ARTEFACTS.get(rel, ("?", ""))[0]
 
 
+def scan_title(run: RunDir) -> str:
+    """The scan's name: the last two folders of its scene ("shoot/vase03"), else the run folder."""
+    scene = run.summary.get("scene")
+    if not scene:
+        return run.path.name
+    parts = Path(str(scene)).parent.parts
+    return "/".join(parts[-2:]) if parts else str(scene)
+
+
 def header_html(run: RunDir) -> str:
     s = run.summary
-    scene = s.get("scene")
-    name = Path(scene).parent.name if scene else run.path.name
+    name = scan_title(run)
     views = s.get("views") or {}
     bits = [f"run folder <code>{esc(run.path.name)}</code>"]
     if views:
@@ -80,7 +88,7 @@ def gain_html(run: RunDir) -> str:
     if not cells:
         return ""
     return ('<p class="note">Held-out PSNR: how closely each method reproduces the photos that were kept '
-            'out of the fit (higher is better; +1 dB is a clearly visible step).</p>'
+            'out of the fit (higher is better).</p>'
             f'<div class="gain">{"".join(cells)}</div>')
 
 
@@ -180,7 +188,7 @@ def errormap_html(run: RunDir) -> str:
                     f'<img class="px" src="{file_uri(run.path / "error_map.png")}" alt="error map"></section>')
         return f"{title}{_absent('not produced: the diagnose stage has not run')}</section>"
     fields, unit = _error_fields(run)
-    regions = errormap.find_regions(fields)
+    regions = errormap.find_regions(fields, first=VERDICT_CLASS.get(run.verdict or ""))
     im = errormap.outline_regions(errormap.painted(fields), regions, fields.cls.shape[0])
     legend = "".join(f'<li><span class="sw" style="background:rgb{errormap.COLOURS[c]}"></span><span>'
                      f"<b>{esc(errormap.LABELS[c])}</b>: {esc(errormap.MEANING[c])}</span></li>"
@@ -203,16 +211,39 @@ def _error_fields(run: RunDir) -> tuple[errormap.ErrorFields, str]:
     """The npz fields with texel areas and positions from model.glb's UVs; the length unit."""
     with np.load(run.path / "error_map.npz") as z:
         size = int(np.asarray(z["geometry"]).shape[0])
+    k = errormap.reduction(size)
     layout = None
     if run.has("model.glb"):
         try:
-            layout = errormap.layout_from_model(run.path / "model.glb", size)
+            layout = errormap.layout_from_model(run.path / "model.glb", size // k)
         except Exception as e:  # the map still shows; region sizes fall back to texel counts
             log.warning("report: cannot lay out the UVs of model.glb (%s)", e)
-    unit = str(run.summary.get("unit", ""))
     fields = errormap.load_fields(run.path / "error_map.npz", layout,
-                                  min_views=int(_config_value(run, "diagnose.min_views", 2)))
-    return fields, UNIT_SYMBOL.get(unit, unit or "units")
+                                  min_views=int(_config_value(run, "diagnose.min_views", 2)), k=k)
+    return fields, str(run.summary.get("unit", ""))
+
+
+def area_text(a: float, unit: str) -> str:
+    """A surface area in scene units^2 as text: metric scenes in mm² / cm² / m², others in their unit
+    (as the diagnosis writes lengths)."""
+    from featuretex.scene.manifest import UNITS
+
+    if unit not in UNITS or UNITS[unit] not in (1.0, 0.01, 0.001):
+        return f"{a:.3g} {SYMBOLS.get(unit, unit or 'units')}²"
+    m2 = a * UNITS[unit] ** 2
+    if m2 < 1e-4:
+        return f"{m2 * 1e6:.3g} mm²"
+    return f"{m2 * 1e4:.3g} cm²" if m2 < 1.0 else f"{m2:.3g} m²"
+
+
+def offset_text(d: float, unit: str) -> str:
+    """A signed length along the normal (scene units) as text, in the diagnosis's own format."""
+    from featuretex.diagnose.verdict import length
+    from featuretex.scene.manifest import UNITS
+
+    if not math.isfinite(d):
+        return "—"
+    return ("+" if d > 0 else "") + length(d, unit, UNITS.get(unit, 1.0))
 
 
 def regions_table_html(regions: list[errormap.Region], unit: str) -> str:
@@ -221,9 +252,9 @@ def regions_table_html(regions: list[errormap.Region], unit: str) -> str:
     rows = []
     for i, r in enumerate(regions, 1):
         code = {v: k for k, v in errormap.KINDS.items()}[r.kind]
-        area = f"{r.area:.3g} {esc(unit)}²" if r.area is not None else "—"
-        where = ", ".join(f"{c:.3g}" for c in r.centre) + f" {esc(unit)}" if r.centre is not None else "—"
-        off = f"{r.offset:+.3g} {esc(unit)}" if r.kind == "geometry" and math.isfinite(r.offset) else "—"
+        area = esc(area_text(r.area, unit)) if r.area is not None else "—"
+        where = ", ".join(f"{c:.3g}" for c in r.centre) + f" {esc(SYMBOLS.get(unit, unit))}" if r.centre else "—"
+        off = esc(offset_text(r.offset, unit)) if r.kind == "geometry" else "—"
         rows.append(f'<tr><td class="n">{i}</td><td><span class="sw" style="display:inline-block;width:12px;'
                     f'height:12px;vertical-align:-1px;background:rgb{errormap.COLOURS[code]}"></span> '
                     f'{esc(errormap.LABELS[code])}</td><td class="n">{percent(r.share)}</td><td class="n">{area}</td>'
@@ -356,7 +387,7 @@ def _section(name: str, draw: Callable[[RunDir], str], run: RunDir) -> str:
 
 
 def render_page(run: RunDir) -> str:
-    name = Path(str(run.summary["scene"])).parent.name if run.summary.get("scene") else run.path.name
+    name = scan_title(run)
     word = describe(run.verdict)[0]
     body = "".join(_section(name, draw, run) for name, draw in SECTIONS)
     return ("<!doctype html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
