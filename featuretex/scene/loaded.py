@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from featuretex.errors import input_error
-from featuretex.scene.images import SWAPS_AXES, load_mask, load_photo
+from featuretex.scene.images import SWAPS_AXES, load_mask, load_photo, verify_image
 from featuretex.scene.manifest import Manifest, View, read_manifest
 from featuretex.scene.mesh import SceneMesh, load_mesh
 
@@ -65,13 +65,10 @@ def load_scene(path: str | Path) -> Scene:
     Every photo and mask is decoded once here, so a damaged file stops the run before any work.
     """
     man = read_manifest(path)
-    photos = check_images(man)
+    check_images(man)
     mesh = load_mesh(man.mesh, str(man.path))
     check_views_see_mesh(man, mesh)
-    scene = Scene(manifest=man, mesh=mesh)
-    for name, photo in photos.items():   # keep what was decoded anyway, within the cache budget
-        scene._photos[name] = photo
-    return scene
+    return Scene(manifest=man, mesh=mesh)
 
 
 def _header_size(p: Path) -> tuple[int, int] | None:
@@ -87,15 +84,14 @@ def _header_size(p: Path) -> tuple[int, int] | None:
     return (h, w) if orient in SWAPS_AXES else (w, h)
 
 
-def check_images(man: Manifest, keep_bytes: int = PHOTO_CACHE_BYTES) -> dict[str, np.ndarray]:
+def check_images(man: Manifest) -> None:
     """Every photo and mask decodes, is upright the camera's width x height, and a mask is not empty.
 
     The header is read first, so an image far larger than its camera is refused before decoding.
-    Returns the first decoded photos ({view name: (H, W, 3) float32 linear}) up to `keep_bytes`.
+    Photos are decoded and dropped (pixels are read again when a stage asks for them); masks are
+    small and are checked for content too.
     """
     file = str(man.path)
-    kept: dict[str, np.ndarray] = {}
-    total = 0
     for v in man.views:
         want = (v.camera.width, v.camera.height)
         for fld, p in (("image", v.image), ("mask", v.mask)):
@@ -107,13 +103,9 @@ def check_images(man: Manifest, keep_bytes: int = PHOTO_CACHE_BYTES) -> dict[str
                                   f"'{v.camera.id}' is {want[0]}x{want[1]}", view=v.name, field=fld,
                                   hint="fix the camera's width/height or use the original photo")
             if fld == "image":
-                photo = load_photo(p, file, v.name, want)
-                if total + photo.nbytes <= keep_bytes:
-                    kept[v.name] = photo
-                    total += photo.nbytes
+                verify_image(p, file, v.name, fld)
             else:
                 load_mask(p, file, v.name, want)
-    return kept
 
 
 def check_views_see_mesh(man: Manifest, mesh: SceneMesh) -> None:
