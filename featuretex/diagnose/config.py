@@ -24,6 +24,7 @@ class DiagnoseConfig:
                                      # cavity no outside camera sees well: not counted towards a rescan
     exposure_rays: int = 32
     # photo-consistency: patch normalised cross-correlation on the UV grid
+    judge_min_cos: float = 0.45      # views judging consistency / offsets see the texel within ~63 deg of its normal
     patch: int = 5                   # patch edge, texels of the working grid (odd)
     min_patch_fill: float = 0.6      # fraction of a patch that must be seen for its NCC to count
     min_contrast: float = 0.012      # patch std (sRGB grey) below which a patch has no texture to judge

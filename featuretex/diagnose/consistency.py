@@ -61,7 +61,7 @@ def loo_ncc(views: list[Samples], D: int, *, patch: int, min_fill: float, min_co
         W[v.idx] += v.weight
     score = np.zeros(D * D)
     wsum = np.zeros(D * D)
-    per_view = np.full((len(views), D * D), np.nan, np.float32) if trim > 0 else None
+    per_view = np.full((D * D, len(views)), np.nan, np.float32) if trim > 0 else None   # texel-major
     S2, W2 = S.reshape(D, D), W.reshape(D, D)
     margin = patch // 2 + 1
     for j, v in enumerate(views):
@@ -94,7 +94,7 @@ def loo_ncc(views: list[Samples], D: int, *, patch: int, min_fill: float, min_co
         score[v.idx[ok_l]] += v.weight[ok_l] * ncc.ravel()[local][ok_l]
         wsum[v.idx[ok_l]] += v.weight[ok_l]
         if per_view is not None:
-            per_view[j, v.idx[ok_l]] = ncc.ravel()[local][ok_l]
+            per_view[v.idx[ok_l], j] = ncc.ravel()[local][ok_l]
     if per_view is not None:
         return trimmed_mean(per_view, trim)
     out = np.where(wsum > 0, score / np.maximum(wsum, 1e-30), np.nan)
@@ -102,16 +102,17 @@ def loo_ncc(views: list[Samples], D: int, *, patch: int, min_fill: float, min_co
 
 
 def trimmed_mean(values: np.ndarray, trim: float) -> tuple[np.ndarray, np.ndarray]:
-    """Per column of values (V, N) (NaN = no value): mean after dropping floor(trim * n) of the
-    n lowest values, and the number kept (float32); NaN / 0 for empty columns."""
-    n = np.isfinite(values).sum(axis=0)
-    srt = np.sort(np.where(np.isfinite(values), values, np.inf), axis=0)      # lowest first, gaps last
-    cs = np.cumsum(np.where(np.isfinite(srt), srt, 0.0), axis=0, dtype=np.float64)
-    cs = np.concatenate([np.zeros((1, values.shape[1])), cs], axis=0)
+    """Per row of values (N, V) (NaN = no value): mean after dropping floor(trim * n) of the n
+    lowest values, and the number kept (float32); NaN / 0 for empty rows."""
+    fin = np.isfinite(values)
+    n = fin.sum(axis=1)
+    srt = np.sort(np.where(fin, values, np.inf), axis=1)          # lowest first, gaps last
+    cs = np.cumsum(np.where(np.isfinite(srt), srt, 0.0), axis=1, dtype=np.float32)
+    cs = np.concatenate([np.zeros((len(values), 1), np.float32), cs], axis=1)
     drop = np.floor(trim * n).astype(np.int64)
-    cols = np.arange(values.shape[1])
+    rows = np.arange(len(values))
     kept = n - drop
-    total = cs[n, cols] - cs[drop, cols]
+    total = cs[rows, n] - cs[rows, drop]
     out = np.where(kept > 0, total / np.maximum(kept, 1), np.nan)
     return out.astype(np.float32), kept.astype(np.float32)
 

@@ -23,7 +23,7 @@ from featuretex.diagnose.alignment import alignment_evidence, field_at, global_s
 from featuretex.diagnose.config import DiagnoseConfig
 from featuretex.diagnose.consistency import Samples, consensus, loo_ncc
 from featuretex.diagnose.exposure import exposure
-from featuretex.diagnose.grid import footprint_ratio, resample_to, texel_areas, texel_edge, working_size
+from featuretex.diagnose.grid import Resampler, footprint_ratio, texel_areas, texel_edge, working_size
 from featuretex.diagnose.observe import Observation, observe
 from featuretex.diagnose.sweep import sweep
 from featuretex.diagnose.underfit import consistent_residual, fit_progress, underfit_weight
@@ -90,7 +90,7 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     known = valid & (work["coverage"] >= cfg.min_views)
     progress = fit_progress(history, cfg.tail)
     weight, why = underfit_weight(progress, ratio, cfg)
-    geometry = C.geometry_field(work["sweep_offset"], work.get("align_misplacement"), geo_tol, known)
+    geometry = C.geometry_field(work["sweep_evidence"], work.get("align_misplacement"), geo_tol, known)
     texture = C.texture_field(work["residual"], work["agreement"], cfg.texture_tol, weight, known)
     cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views, min_region=cfg.min_region)
     area = texel_areas(scene.mesh, grid)
@@ -116,8 +116,8 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     words = reasons(verdict, ev, cfg, fix_tol, scene.manifest.unit, scene.manifest.unit_m)
 
     work.update(geometry=geometry, texture=texture, cls=cls, valid=valid, hidden=hidden)
-    up = lambda a, mode="mean": resample_to(a, valid, texels.valid, mode=mode)  # noqa: E731
-    cls_t = up(cls.astype(np.float32), "max")
+    up = Resampler(valid, texels.valid)
+    cls_t = up(cls.astype(np.float32), mode="max")
     cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
     extra = {k: up(work[k]) for k in ("consistency", "consistency_aligned", "residual", "align_misplacement",
                                       "align_offset", "sweep_gain", "sweep_score") if k in work}
@@ -144,7 +144,7 @@ def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray,
     shape = lambda a: np.asarray(a, np.float32).reshape(D, D)  # noqa: E731
     if not obs:
         nan = np.full((D, D), np.nan, np.float32)
-        out.update(sweep_offset=nan, residual=nan, agreement=nan, consistency=nan)
+        out.update(sweep_offset=nan, sweep_evidence=nan, residual=nan, agreement=nan, consistency=nan)
         return out
 
     half = cfg.sweep_units if cfg.sweep_units > 0 else cfg.sweep_fraction * size
@@ -153,7 +153,7 @@ def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray,
         if f is not None and cfg.align_remove_global:
             o.shift = global_shift(f, o.xy, o.view.camera.width, o.view.camera.height)
     sw = sweep(obs, pos, nrm, D, half, cfg)
-    out.update(sweep_offset=shape(sw.displacement), sweep_gain=shape(sw.gain), sweep_score=shape(sw.best_score),
+    out.update(sweep_offset=shape(sw.displacement), sweep_evidence=shape(sw.evidence), sweep_gain=shape(sw.gain), sweep_score=shape(sw.best_score),
                    consistency=shape(sw.score0))
 
     al = alignment_evidence(obs, pos, nrm, N, remove_global=cfg.align_remove_global, ridge=0.1)

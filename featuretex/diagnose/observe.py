@@ -71,7 +71,9 @@ def observe(scene: Scene, gbuffers: dict[str, GBuffer], grid: TexelBuffer, cell:
     limit = cfg.max_footprint_ratio * median_fp
     for view, everything, s in raw:
         fp = 1.0 / s.px_per_unit.astype(np.float64)
-        keep = fp <= limit
+        # evidence only from views facing the texel well: grazing views foreshorten a patch so much
+        # that it no longer looks like the same patch seen from the front (MVS common practice)
+        keep = (fp <= limit) & (s.cos >= cfg.judge_min_cos)
         seen = everything.idx[1.0 / everything.px_per_unit <= limit]
         if not keep.any():
             continue
@@ -90,7 +92,8 @@ def prepared_photo(photo: np.ndarray, corr: ViewCorrection | None, spacing_px: f
     common practice)."""
     img = photo
     if corr is not None:
-        img = ((photo.reshape(-1, 3) - corr.bias) @ np.linalg.inv(corr.matrix).T).reshape(photo.shape)
+        inv = np.linalg.inv(corr.matrix.astype(np.float64)).T.astype(np.float32)
+        img = ((photo.reshape(-1, 3) - corr.bias.astype(np.float32)) @ inv).reshape(photo.shape)
     if spacing_px > 1.2:
         s = 0.5 * spacing_px
         img = ndimage.gaussian_filter(img, sigma=(s, s, 0), mode="nearest")

@@ -25,6 +25,7 @@ class SweepResult:
     best_score: np.ndarray    # (D*D,) float32 pooled NCC at the best offset
     score0: np.ndarray        # (D*D,) float32 unpooled NCC at offset 0 (photo-consistency)
     confident: np.ndarray     # (D*D,) bool: best offset confidently better than 0
+    evidence: np.ndarray = None  # (D*D,) float32 |best| x how clearly it beats 0 (0..1), scene units
 
     @property
     def displacement(self) -> np.ndarray:
@@ -63,7 +64,14 @@ def sweep(obs: list[Observation], pos: np.ndarray, nrm: np.ndarray, D: int, half
     for o in obs:
         views_at[o.idx] += 1
     # with few views, some offset agrees by chance: too little to measure an offset with
-    res.confident &= views_at >= cfg.sweep_min_views
+    enough = views_at >= cfg.sweep_min_views
+    res.confident &= enough
+    # graded evidence for the geometry field: the offset weighted by its gain (full at twice the
+    # confidence gain), so texels just under the threshold still rank above clean ones
+    k = np.abs(res.best) > 0.5 * float(ts[1] - ts[0])
+    clear = np.clip(np.nan_to_num(res.gain) / (2.0 * cfg.sweep_min_gain), 0.0, 1.0)
+    res.evidence = np.where(enough & k & np.isfinite(res.best), np.abs(np.nan_to_num(res.best)) * clear,
+                            0.0).astype(np.float32)
     res.confident = coherent(res.best, res.confident, D, float(ts[1] - ts[0]), cfg.aggregate)
     return res
 
