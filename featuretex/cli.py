@@ -11,6 +11,7 @@ os.environ.setdefault("PYOPENGL_PLATFORM", "egl")  # headless OpenGL for preview
 
 import hydra
 from hydra.core.hydra_config import HydraConfig
+from hydra.types import RunMode
 from omegaconf import DictConfig, OmegaConf
 
 from featuretex.config import FeaturetexConfig, register
@@ -33,15 +34,23 @@ def _hydra_main(cfg: DictConfig) -> dict:
     out = Path(HydraConfig.get().runtime.output_dir)
     try:
         summary = run_pipeline(conf, out)
-    except InputError as e:
+    except (InputError, OSError) as e:
+        if HydraConfig.get().mode == RunMode.MULTIRUN:
+            raise  # featuretex.batch.BatchIndex records it in failed.json; the batch goes on
+        _fail(e, out)
+    log.info("done: %s", out)
+    return summary
+
+
+def _fail(e: Exception, out: Path) -> None:
+    """One line on stderr and a non-zero exit: 2 for bad input, 3 when the output cannot be written."""
+    if isinstance(e, InputError):
         print(f"featuretex: {e}", file=sys.stderr)
         sys.exit(InputError.exit_code)
-    except OSError as e:  # disk full, read-only or vanished output folder: outputs stay whole (atomic)
+    if isinstance(e, OSError):  # disk full, read-only or vanished output folder: outputs stay whole (atomic)
         where = f" '{e.filename}'" if getattr(e, "filename", None) else ""
         print(f"featuretex: cannot write the output{where} in {out}: {e.strerror or e}", file=sys.stderr)
         sys.exit(OUTPUT_ERROR_EXIT)
-    log.info("done: %s", out)
-    return summary
 
 
 def main() -> None:

@@ -14,6 +14,14 @@ log = logging.getLogger("featuretex")
 LOG_EVERY_S = 30.0  # off a terminal: one log line per this many seconds
 
 
+def _in_multirun() -> bool:
+    """Parallel jobs of a batch would garble bars, and bars never reach the job log."""
+    from hydra.core.hydra_config import HydraConfig
+    from hydra.types import RunMode
+
+    return HydraConfig.initialized() and HydraConfig.get().mode == RunMode.MULTIRUN
+
+
 def progress_bar(total: int, desc: str, unit: str = "it", *, quiet: bool = False) -> "Progress":
     return Progress(total, desc, unit, quiet=quiet)
 
@@ -28,7 +36,7 @@ class Progress:
         self._last_log = self.t0
         self._postfix = ""
         self._bar = None
-        if not quiet and sys.stderr.isatty():
+        if not quiet and sys.stderr.isatty() and not _in_multirun():
             self._bar = tqdm(total=total, desc=desc, unit=unit, initial=initial, dynamic_ncols=True)
 
     def set_postfix(self, text: str) -> None:
