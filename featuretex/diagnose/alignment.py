@@ -91,6 +91,7 @@ class AlignmentEvidence:
 
     misplacement: np.ndarray   # (D*D,) float32 RMS over views of the local field, scene units; NaN unseen
     offset: np.ndarray         # (D*D,) float32 least-squares offset along the normal, scene units; NaN if unsolved
+    significant: np.ndarray    # (D*D,) bool: offset at least `z` standard errors from 0, from >= 3 views
     global_px: dict[str, float]  # per view: median |d| px removed as a calibration-like shift
 
 
@@ -102,11 +103,14 @@ def normal_system(J: np.ndarray, n: np.ndarray) -> np.ndarray:
 
 
 def alignment_evidence(obs: list, grid_pos: np.ndarray, grid_nrm: np.ndarray, n_texels: int, *,
-                       remove_global: bool, ridge: float) -> AlignmentEvidence | None:
+                       remove_global: bool, ridge: float, z: float = 3.0,
+                       sigma_floor_px: float = 0.05) -> AlignmentEvidence | None:
     """Fields of all views that have one, back-projected to the working texels.
 
     obs: Observations (featuretex.diagnose.observe); grid_pos, grid_nrm: (D*D, 3) float64 texel
-    positions and unit normals. `ridge` (scene units^-2 in pixel^2) damps tangential slips.
+    positions and unit normals. `ridge` (relative to the system's scale) damps tangential slips.
+    The offset's standard error is that of weighted least squares, sigma0^2 (A^-1)_nn with sigma0^2
+    the residual variance per unit weight (RSS / (2 views - 3)), floored at sigma_floor_px.
     """
     users = [o for o in obs if o.correction is not None and o.correction.field is not None]
     if not users:
@@ -115,6 +119,8 @@ def alignment_evidence(obs: list, grid_pos: np.ndarray, grid_nrm: np.ndarray, n_
     wsum = np.zeros(n_texels)
     A = np.zeros((n_texels, 3, 3))
     b = np.zeros((n_texels, 3))
+    dd = np.zeros(n_texels)
+    nv = np.zeros(n_texels)
     gl: dict[str, float] = {}
     for o in users:
         cam = o.view.camera
@@ -130,19 +136,32 @@ def alignment_evidence(obs: list, grid_pos: np.ndarray, grid_nrm: np.ndarray, n_
         G = normal_system(projection_jacobian(o.view.R, pc, cam.fx, cam.fy), grid_nrm[o.idx])  # (N, 2, 3)
         A[o.idx] += w[:, None, None] * np.einsum("nki,nkj->nij", G, G)
         b[o.idx] += w[:, None] * np.einsum("nki,nk->ni", G, d)
+        dd[o.idx] += w * (d * d).sum(1)
+        nv[o.idx] += 1
     seen = wsum > 0
     mis = np.full(n_texels, np.nan)
     mis[seen] = np.sqrt(sq[seen] / wsum[seen])
     offset = np.full(n_texels, np.nan)
+    significant = np.zeros(n_texels, bool)
     ok = seen & (np.linalg.det(A) > 0)
     if ok.any():
-        scale = np.trace(A[ok], axis1=1, axis2=2)[:, None, None] / 3.0
-        reg = A[ok] + ridge * scale * np.diag([0.0, 1.0, 1.0])[None] + 1e-9 * scale * np.eye(3)[None]
-        sol = np.linalg.solve(reg, b[ok][..., None])[..., 0]
+        Ak, bk = A[ok], b[ok]
+        scale = np.trace(Ak, axis1=1, axis2=2)[:, None, None] / 3.0
+        reg = Ak + ridge * scale * np.diag([0.0, 1.0, 1.0])[None] + 1e-9 * scale * np.eye(3)[None]
+        inv = np.linalg.inv(reg)
+        sol = np.einsum("nij,nj->ni", inv, bk)
+        rss = np.maximum(dd[ok] - 2 * np.einsum("ni,ni->n", sol, bk) + np.einsum("ni,nij,nj->n", sol, Ak, sol), 0)
+        dof = np.maximum(2 * nv[ok] - 3, 1)
+        sigma2 = np.maximum(rss / dof, sigma_floor_px ** 2 * wsum[ok] / np.maximum(nv[ok], 1))
+        se = np.sqrt(sigma2 * np.maximum(inv[:, 0, 0], 0))
         # an offset counts only where views from different directions constrain it
-        cond = _normal_information(A[ok]) / np.maximum(scale[:, 0, 0], 1e-30)
-        offset[np.flatnonzero(ok)[cond > 0.02]] = sol[cond > 0.02, 0]
-    return AlignmentEvidence(misplacement=mis.astype(np.float32), offset=offset.astype(np.float32), global_px=gl)
+        cond = _normal_information(Ak) / np.maximum(scale[:, 0, 0], 1e-30)
+        keep = cond > 0.02
+        idx = np.flatnonzero(ok)
+        offset[idx[keep]] = sol[keep, 0]
+        significant[idx] = keep & (nv[ok] >= 3) & (np.abs(sol[:, 0]) >= z * se)
+    return AlignmentEvidence(misplacement=mis.astype(np.float32), offset=offset.astype(np.float32),
+                             significant=significant, global_px=gl)
 
 
 def _normal_information(A: np.ndarray) -> np.ndarray:

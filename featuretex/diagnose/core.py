@@ -97,7 +97,11 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     hidden = cavities(scene, grid, cls == C.UNCOVERED, cfg)
     areas = C.area_fractions(cls, area, hidden)
 
+    # the sweep's offset where it is confident; else the fields' offset where it is significant
     displacement = work["sweep_offset"].copy()
+    if "align_significant" in work:
+        fill = ~np.isfinite(displacement) & work["align_significant"] & known
+        displacement[fill] = work["align_offset"][fill]
     magnitude = np.fmax(np.abs(displacement), work.get("align_misplacement", np.full_like(displacement, np.nan)))
     pos = grid.position.astype(np.float64)
     top = cfg.regions_reported
@@ -159,7 +163,8 @@ def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray,
     al = alignment_evidence(obs, pos, nrm, N, remove_global=cfg.align_remove_global, ridge=0.1)
     aligned_xy = {}
     if al is not None:
-        out.update(align_misplacement=shape(al.misplacement), align_offset=shape(al.offset))
+        out.update(align_misplacement=shape(al.misplacement), align_offset=shape(al.offset),
+                   align_significant=al.significant.reshape(D, D))
         shifts = np.array(list(al.global_px.values()))
         out["global_shift_px"] = np.float32(np.median(shifts))
         fp = np.median(np.concatenate([o.depth / o.focal for o in obs]))
