@@ -11,11 +11,16 @@ class _Layer:
     """A random (T, T, C) layer and its sampler."""
 
     def __init__(self, T: int, C: int, seed: int = 0):
-        self.values = torch.from_numpy(np.random.default_rng(seed).random((T, T, C), dtype=np.float32))
-        self.values.requires_grad_()
+        self.T, self.C = T, C
+        self.flat = torch.from_numpy(np.random.default_rng(seed).random((T * T, C), dtype=np.float32))
+        self.flat.requires_grad_()
+
+    @property
+    def values(self) -> torch.Tensor:
+        return self.flat.view(self.T, self.T, self.C)
 
     def sample(self, uv, rho):
-        return sample_layer(self.values, uv, rho)
+        return sample_layer(self.flat, self.T, uv, rho)
 
 
 def _texture(T: int, C: int, seed: int = 0) -> _Layer:
@@ -86,7 +91,7 @@ def test_gradients_reach_level0():
     tex = _texture(8, 2, seed=5)
     out = tex.sample(torch.tensor([[0.5, 0.5], [0.1, 0.9]]), torch.tensor([8.0 / 8, 0.1 / 8]))
     out.sum().backward()
-    g = tex.values.grad.numpy()
+    g = tex.flat.grad.reshape(8, 8, 2).numpy()
     # the fully minified pixel (rho * T = 8 -> level 3 = whole texture) spreads 1/64 to every texel
     assert np.all(g[..., 0] >= 1.0 / 64 - 1e-6)
     np.testing.assert_allclose(g.sum(axis=(0, 1)), [2.0, 2.0], atol=1e-5)  # weights sum to 1 per pixel

@@ -97,7 +97,7 @@ def render_texel_head(model: SceneModel, size: int | None = None) -> np.ndarray:
     tex = model.texture
     T = tex.size if size is None else int(size)
     if T == tex.size:
-        return model.decoder.head(tex.colour).numpy().astype(np.float32)
+        return model.decoder.head(tex.colour_grid()).numpy().astype(np.float32)
     uv = torch.from_numpy(texel_uv(T).reshape(-1, 2).astype(np.float32))
     feat = tex.sample_colour(uv, torch.full((T * T,), 1.0 / T))
     return model.decoder.head(feat).reshape(T, T, 3).numpy().astype(np.float32)
