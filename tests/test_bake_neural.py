@@ -51,7 +51,7 @@ def make_model(tex_lin: np.ndarray, decoder: str = "texel", offset: float | None
         corr = ViewCorrections([v.name for v in fitted], sizes, grid_shape(sizes[0][1], sizes[0][0], 40.0))
     m = SceneModel(tex_lin.shape[0], 2, decoder, {}, corr)
     with torch.no_grad():
-        m.texture.colour.copy_(torch.from_numpy(tex_lin.astype(np.float32)))
+        m.texture.colour.copy_(torch.from_numpy(tex_lin.astype(np.float32)).reshape(m.texture.colour.shape))
         if offset is not None:
             out = m.decoder.screen.out
             out.weight.zero_()
