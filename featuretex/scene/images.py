@@ -101,7 +101,8 @@ def _open(path: Path, manifest_file: str, view: str, fld: str) -> tuple[Image.Im
                     hint="use PNG, JPEG or TIFF") from None
     if im.mode in _REFUSED:
         im.close()
-        raise _fail(manifest_file, view, fld, path, f"{im.mode} image refused", hint=_REFUSED[im.mode])
+        kind = {"I": "32-bit integer", "F": "floating-point"}.get(im.mode, im.mode)
+        raise _fail(manifest_file, view, fld, path, f"{kind} image refused", hint=_REFUSED[im.mode])
     wide = im.format in ("PNG", "TIFF") and _bits_per_sample(im, path) > 8
     if not wide and im.mode not in _EIGHT_BIT and im.mode not in _SIXTEEN_BIT_GREY:
         im.close()

@@ -112,15 +112,18 @@ def _short(value: Any, limit: int = 60) -> str:
 
 def _number(value: Any, file: str, *, view: str | None, fld: str, positive: bool = False) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise input_error(file, f"expected a number, got {_short(value)}", view=view, field=fld)
+        raise input_error(file, f"expected a number, got {_short(value)}", view=view, field=fld,
+                          hint="write a plain number without quotes, e.g. 1100.0")
     try:
         v = float(value)
     except OverflowError:          # an integer beyond the float range
         v = math.inf
     if not math.isfinite(v):
-        raise input_error(file, f"must be finite, got {_short(value)}", view=view, field=fld)
+        raise input_error(file, f"must be finite, got {_short(value)}", view=view, field=fld,
+                          hint="the tool that wrote the file lost this value; export it again")
     if positive and v <= 0:
-        raise input_error(file, f"must be > 0, got {_short(value)}", view=view, field=fld)
+        raise input_error(file, f"must be > 0, got {_short(value)}", view=view, field=fld,
+                          hint="focal lengths are in pixels: focal length in mm x image width / sensor width")
     return v
 
 
@@ -189,7 +192,8 @@ def parse_camera(cid: str, d: Any, file: str) -> Camera:
     _unknown_keys(d, CAMERA_KEYS, file, view=None, where=where)
     for k in ("model", "width", "height", "fx", "fy", "cx", "cy"):
         if k not in d:
-            raise input_error(file, "missing", field=f"{where}.{k}")
+            raise input_error(file, "missing", field=f"{where}.{k}",
+                              hint="a camera needs model, width, height, fx, fy, cx and cy")
     model = d["model"]
     if not isinstance(model, str) or model not in MODELS:
         raise input_error(file, f"unknown camera model {_short(model)}", field=f"{where}.model",
@@ -208,7 +212,7 @@ def parse_camera(cid: str, d: Any, file: str) -> Camera:
     if dist is not None:
         if not isinstance(dist, list) or len(dist) not in (4, 5):
             raise input_error(file, f"expected a list [k1, k2, p1, p2, k3] (OpenCV order), got {_short(dist)}",
-                              field=f"{where}.distortion")
+                              field=f"{where}.distortion", hint="4 or 5 numbers; leave it out for no distortion")
         vals = [_number(c, file, view=None, fld=f"{where}.distortion[{i}]") for i, c in enumerate(dist)]
         coeffs = tuple(vals + [0.0] * (5 - len(vals)))  # type: ignore[assignment]
     cam = Camera(id=cid, model=model, width=w, height=h, fx=fx, fy=fy, cx=cx, cy=cy, distortion=coeffs)
@@ -248,11 +252,12 @@ def _matrix(value: Any, file: str, view: str, fld: str) -> np.ndarray:
     """A 3x4 or 4x4 nested list of plain numbers -> (rows, 4) float64; nothing else is taken as one."""
     if not isinstance(value, list) or len(value) not in (3, 4):
         raise input_error(file, f"expected a 3x4 or 4x4 matrix (a list of rows), got {_short(value)}",
-                          view=view, field=fld)
+                          view=view, field=fld, hint="[[r00, r01, r02, tx], [r10, r11, r12, ty], [r20, r21, r22, tz]]")
     rows = []
     for i, row in enumerate(value):
         if not isinstance(row, list) or len(row) != 4:
-            raise input_error(file, f"row {i} must be a list of 4 numbers, got {_short(row)}", view=view, field=fld)
+            raise input_error(file, f"row {i} must be a list of 4 numbers, got {_short(row)}", view=view, field=fld,
+                              hint="[[r00, r01, r02, tx], [r10, r11, r12, ty], [r20, r21, r22, tz]]")
         rows.append([_number(x, file, view=view, fld=f"{fld}[{i}][{j}]") for j, x in enumerate(row)])
     return np.array(rows, dtype=np.float64)
 
@@ -268,9 +273,10 @@ def parse_pose(value: Any, file: str, view: str) -> np.ndarray:
     if m.shape == (4, 4) and not np.allclose(m[3], [0, 0, 0, 1], atol=1e-9):
         raise input_error(file, f"last row must be [0, 0, 0, 1], got {m[3].tolist()}", view=view, field=fld)
     R = m[:3, :3]
-    ortho = np.abs(R.T @ R - np.eye(3)).max()
-    det = float(np.linalg.det(R))
-    if ortho > ROTATION_TOL or abs(det - 1) > ROTATION_TOL:
+    with np.errstate(all="ignore"):       # huge entries: inf / nan below, and refused
+        ortho = float(np.abs(R.T @ R - np.eye(3)).max())
+        det = float(np.linalg.det(R))
+    if not (ortho <= ROTATION_TOL and abs(det - 1) <= ROTATION_TOL):   # also false for nan
         what = "a mirror (det < 0)" if det < 0 else "not a rotation"
         raise input_error(file, f"the 3x3 block is {what} (max |RᵀR − I| = {ortho:.2g}, det = {det:.4g})",
                           view=view, field=fld,
@@ -337,7 +343,8 @@ def _parse_view(i: int, vd: Any, file: str, root: Path, cameras: dict[str, Camer
     seen.add(name)
     for k in ("image", "camera", "world_to_camera"):
         if k not in vd:
-            raise input_error(file, "missing", view=name, field=k)
+            raise input_error(file, "missing", view=name, field=k,
+                              hint="a view needs name, image, camera and world_to_camera")
     cid = _text_id(vd["camera"])
     if cid not in cameras:
         raise input_error(file, f"unknown camera id {_short(vd['camera'])}", view=name, field="camera",
@@ -348,7 +355,8 @@ def _parse_view(i: int, vd: Any, file: str, root: Path, cameras: dict[str, Camer
         mask = _resolve_path(root, vd["mask"], file, view=name, fld="mask")
     holdout = vd.get("holdout", False)
     if not isinstance(holdout, bool):
-        raise input_error(file, f"expected true or false, got {_short(holdout)}", view=name, field="holdout")
+        raise input_error(file, f"expected true or false, got {_short(holdout)}", view=name, field="holdout",
+                          hint="true = the view is only scored, never fitted")
     pose = parse_pose(vd["world_to_camera"], file, name)
     return View(name=name, image=image, mask=mask, camera=cameras[cid], world_to_camera=pose, holdout=holdout)
 
@@ -371,13 +379,15 @@ def read_manifest(path: str | Path) -> Manifest:
         raise input_error(file, "scene file not found", hint="pass scene=path/to/scene.yaml or its folder")
     data = _load_yaml(path, file)
     if not isinstance(data, dict):
-        raise input_error(file, f"expected a mapping at the top level, got {_short(data)}")
+        raise input_error(file, f"expected a mapping at the top level, got {_short(data)}",
+                          hint="is this a scene.yaml? it holds format, mesh, unit, cameras and views")
     _unknown_keys(data, TOP_KEYS, file, view=None, where="the top level")
     if data.get("format") != FORMAT:
-        raise input_error(file, f"expected '{FORMAT}', got {_short(data.get('format'))}", field="format")
+        raise input_error(file, f"expected '{FORMAT}', got {_short(data.get('format'))}", field="format",
+                          hint=f"a scene file starts with the line 'format: {FORMAT}'")
     root = path.parent
     if "mesh" not in data:
-        raise input_error(file, "missing", field="mesh")
+        raise input_error(file, "missing", field="mesh", hint="name the mesh file, e.g. 'mesh: mesh.obj'")
     mesh = _resolve_path(root, data["mesh"], file, view=None, fld="mesh")
     unit = data.get("unit", None)
     if not isinstance(unit, str) or unit not in UNITS:
@@ -386,7 +396,7 @@ def read_manifest(path: str | Path) -> Manifest:
     cams_raw = data.get("cameras")
     if not isinstance(cams_raw, dict) or not cams_raw:
         raise input_error(file, f"expected a non-empty mapping of camera id -> intrinsics, got {_short(cams_raw)}",
-                          field="cameras")
+                          field="cameras", hint="write 'cameras:' then one indented block per camera id")
     cameras: dict[str, Camera] = {}
     for key, d in cams_raw.items():
         cid = _text_id(key)
@@ -397,7 +407,8 @@ def read_manifest(path: str | Path) -> Manifest:
         cameras[cid] = parse_camera(cid, d, file)
     views_raw = data.get("views")
     if not isinstance(views_raw, list) or not views_raw:
-        raise input_error(file, f"expected a non-empty list of views, got {_short(views_raw)}", field="views")
+        raise input_error(file, f"expected a non-empty list of views, got {_short(views_raw)}", field="views",
+                          hint="each view is a '- name: ...' entry under 'views:'")
     seen: set[str] = set()
     views = [_parse_view(i, vd, file, root, cameras, seen) for i, vd in enumerate(views_raw)]
     n_fit = sum(not v.holdout for v in views)
