@@ -22,8 +22,8 @@ def ramp(x: np.ndarray) -> np.ndarray:
 def geometry_field(sweep_mag: np.ndarray, align_mag: np.ndarray | None, tol: float,
                    known: np.ndarray) -> np.ndarray:
     """(D, D) float32 in 0..1: the larger misplacement of the sweep (its graded evidence, scene
-    units) and the alignment fields (local RMS), over the tolerance, through `ramp`; NaN where not
-    `known`."""
+    units) and of the alignment fields (|offset along the normal|), over the tolerance, through
+    `ramp`; NaN where not `known`."""
     e = np.where(np.isfinite(sweep_mag), np.abs(sweep_mag), 0.0)
     if align_mag is not None:
         e = np.maximum(e, np.where(np.isfinite(align_mag), align_mag, 0.0))

@@ -18,7 +18,8 @@ class DiagnoseConfig:
     min_cos: float = 0.26            # steeper than ~75 deg from the normal is too grazing (common practice)
     max_footprint_ratio: float = 3.0  # a view whose pixel is > this x the scene's median pixel footprint is too far
     depth_tol_px: float = 2.0        # visibility: allowed depth gap, in pixel footprints
-    edge_erode_px: int = 2           # drop samples this close to a silhouette
+    edge_erode_px: int = 2           # drop samples this close to a silhouette or an occlusion edge
+    occlusion_jump: float = 0.02     # a depth step over 3 x 3 pixels larger than this x depth is an occlusion edge
     min_views: int = 2               # 'uncovered' = seen by fewer usable views than this
     min_exposure: float = 0.25       # uncovered surface open to less of its hemisphere than this is a
                                      # cavity no outside camera sees well: not counted towards a rescan

@@ -90,7 +90,11 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     known = valid & (work["coverage"] >= cfg.min_views)
     progress = fit_progress(history, cfg.tail)
     weight, why = underfit_weight(progress, ratio, cfg)
-    geometry = C.geometry_field(work["sweep_evidence"], work.get("align_misplacement"), geo_tol, known)
+    # the fields' offset along the normal, not their whole lateral size: a tangential slip is
+    # absorbed by the texture, and the normal part is what wrong geometry causes (on the demo with
+    # an 800-step fit, AUROC per face 0.82 for |offset| against 0.70 for the lateral RMS)
+    align_normal = np.abs(work["align_offset"]) if "align_offset" in work else None
+    geometry = C.geometry_field(work["sweep_evidence"], align_normal, geo_tol, known)
     texture = C.texture_field(work["residual"], work["agreement"], cfg.texture_tol, weight, known)
     cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views, min_region=cfg.min_region)
     area = texel_areas(scene.mesh, grid)
@@ -102,7 +106,7 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     if "align_significant" in work:
         fill = ~np.isfinite(displacement) & work["align_significant"] & known
         displacement[fill] = work["align_offset"][fill]
-    magnitude = np.fmax(np.abs(displacement), work.get("align_misplacement", np.full_like(displacement, np.nan)))
+    magnitude = np.fmax(np.abs(displacement), align_normal if align_normal is not None else np.nan)
     pos = grid.position.astype(np.float64)
     top = cfg.regions_reported
     ev = Evidence(
@@ -124,7 +128,7 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     cls_t = up(cls.astype(np.float32), mode="max")
     cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
     extra = {k: up(work[k]) for k in ("consistency", "consistency_aligned", "residual", "align_misplacement",
-                                      "align_offset", "sweep_gain", "sweep_score") if k in work}
+                                      "align_offset", "sweep_gain", "sweep_score", "sweep_evidence") if k in work}
     figures = {"working_grid": D, "texture_size": T, "footprint_ratio": float(ratio), "views": len(obs),
                "sweep_half_range": float(half), "geometry_tol": float(geo_tol), "fix_tol": float(fix_tol),
                "geometry_misplacement_p90": ev.geometry_misplacement, "fit_tail_drop": progress.tail_drop,

@@ -61,7 +61,8 @@ def observe(scene: Scene, gbuffers: dict[str, GBuffer], grid: TexelBuffer, cell:
         gbuf = gbuffers[view.name]
         # near a silhouette a sample may mix in background: it counts for coverage, not for colour
         everything = view_samples(grid, view, gbuf, usable_mask(scene, view, gbuf, 0), bcfg)
-        s = view_samples(grid, view, gbuf, usable_mask(scene, view, gbuf, cfg.edge_erode_px), bcfg)
+        inner = usable_mask(scene, view, gbuf, cfg.edge_erode_px) & ~occlusion_edges(gbuf, cfg)
+        s = view_samples(grid, view, gbuf, inner, bcfg)
         raw.append((view, everything, s))
     footprints = [1.0 / s.px_per_unit for _, s, _ in raw if len(s.idx)]
     if not footprints:
@@ -84,6 +85,21 @@ def observe(scene: Scene, gbuffers: dict[str, GBuffer], grid: TexelBuffer, cell:
                                depth=fp[keep] * 0.5 * (view.camera.fx + view.camera.fy),
                                colour=colour, grey=luma(colour), correction=corr))
     return out
+
+
+def occlusion_edges(gbuf: GBuffer, cfg: DiagnoseConfig) -> np.ndarray:
+    """(H, W) bool: pixels within edge_erode_px of a depth jump inside the object (a handle in front
+    of the body). There a small error in the mesh changes what the photo shows, so a sample of
+    the surface behind (or in front) is no evidence about its own geometry."""
+    z = np.asarray(gbuf.depth, np.float32)
+    cov = np.asarray(gbuf.coverage)
+    big = np.where(cov, z, 0.0)
+    lo = ndimage.minimum_filter(np.where(cov, z, np.inf), size=3)
+    hi = ndimage.maximum_filter(big, size=3)
+    jump = cov & np.isfinite(lo) & (hi - lo > cfg.occlusion_jump * np.maximum(z, 1e-12))
+    if cfg.edge_erode_px > 0 and jump.any():
+        jump = ndimage.binary_dilation(jump, iterations=cfg.edge_erode_px)
+    return jump
 
 
 def prepared_photo(photo: np.ndarray, corr: ViewCorrection | None, spacing_px: float) -> np.ndarray:
