@@ -1,7 +1,7 @@
 """Diagnosis quality and speed on the bundled demo (a dented jug with a smoothed band).
 
     python benchmarks/diagnose.py                 # fit the demo here, then diagnose it
-    python benchmarks/diagnose.py --run DIR       # diagnose the fit of an earlier `featuretex` run in DIR
+    python benchmarks/diagnose.py --run DIR       # diagnose an earlier fit of the demo (DIR/fit/...)
 
 Quality: per scan face, the mean of the `geometry` field over its texels against the demo's ground
 truth (demo_assets/ground_truth/face_error.npy, signed offset to the true surface in meters):
@@ -71,19 +71,30 @@ def fit_here(scene, gbuffers, texels, run: Path) -> tuple[dict, dict, np.ndarray
     return res.corrections, res.history, render_texel_head(res.model, texels.size), fit_s
 
 
-def from_run(run: Path, texels: TexelBuffer) -> tuple[dict, dict, np.ndarray, float]:
-    """An earlier pipeline run's fit: corrections, history, baked texture and recorded fit seconds."""
+def from_run(run: Path, scene, gbuffers, texels: TexelBuffer) -> tuple[dict, dict, np.ndarray, float]:
+    """An earlier fit of the demo in `run` (a featuretex run dir, or any dir holding fit/):
+    corrections, history, its texture (texture.png; else the baseline bake) and its fit seconds
+    (stages.json; else the fit's own total in history.json)."""
     from PIL import Image
 
     from featuretex.scene.colour import srgb_to_linear
 
     corr = load_corrections(run / "fit" / "corrections.npz")
     hist = json.loads((run / "fit" / "history.json").read_text())
-    tex = srgb_to_linear(np.asarray(Image.open(run / "texture.png").convert("RGB"), np.float32) / 255.0)
-    if tex.shape[0] != texels.size:
-        raise SystemExit(f"{run}/texture.png is {tex.shape[0]} texels, the scene's auto size is {texels.size}")
-    records = json.loads((run / "stages.json").read_text())
-    return corr, hist, tex, float(records.get("fit", {}).get("seconds", float("nan")))
+    png = run / "texture.png"
+    if png.is_file():
+        tex = srgb_to_linear(np.asarray(Image.open(png).convert("RGB"), np.float32) / 255.0)
+        if tex.shape[0] != texels.size:
+            raise SystemExit(f"{png} is {tex.shape[0]} texels, the scene's auto size is {texels.size}")
+    else:
+        print(f"{run} has no texture.png: judging the baseline bake's texture")
+        tex = bake_baseline(scene, gbuffers, texels).texture_lin
+    stages = run / "stages.json"
+    if stages.is_file():
+        fit_s = float(json.loads(stages.read_text()).get("fit", {}).get("seconds", float("nan")))
+    else:
+        fit_s = float(hist.get("timings_s", {}).get("total_s", float("nan")))
+    return corr, hist, tex, fit_s
 
 
 def main() -> None:
@@ -96,7 +107,7 @@ def main() -> None:
         gbuffers, _ = build_gbuffers(scene, work / "cache" / "gbuffer", quiet=True)
         size = auto_texture_size(scene, gbuffers)
         texels = rasterise_uv(scene.mesh, size)
-        corr, hist, tex, fit_s = from_run(args.run, texels) if args.run else fit_here(scene, gbuffers, texels, work)
+        corr, hist, tex, fit_s = from_run(args.run, scene, gbuffers, texels) if args.run else fit_here(scene, gbuffers, texels, work)
         t0 = time.perf_counter()
         dg = diagnose(scene, gbuffers, texels, tex, DiagnoseConfig(), corrections=corr, history=hist)
         write_outputs(work / "out", dg, scene, texels)
@@ -121,9 +132,9 @@ def main() -> None:
                                   if ok_d.sum() > 2 else float("nan"))
         out[f"{name}faces_with_displacement"] = int(ok_d.sum())
         out[f"{name}verdict"] = d.verdict
-    for k in ("align_misplacement", "consistency", "residual"):
+    for k in ("align_offset", "align_misplacement", "sweep_evidence", "consistency"):
         if k in dg.extra:
-            h = per_face(dg.extra[k], texels, F)
+            h = per_face(np.abs(dg.extra[k]), texels, F)
             ok = np.isfinite(h) & np.isfinite(err)
             out[f"auroc_{k}_alone"] = auroc(-h[ok] if k == "consistency" else h[ok], positive[ok])
     print(f"verdict: {dg.verdict}; areas: {dg.areas}")
