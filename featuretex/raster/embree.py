@@ -42,7 +42,8 @@ class EmbreeRasteriser:
         """(H, W) GBUFFER_DTYPE for every pixel centre of `view`."""
         cam = view.camera
         rays_cam = cam.pixel_rays()                      # (H*W, 3), z = 1
-        dirs = rays_cam @ view.R                         # camera -> world (R^T applied to rows)
+        # camera -> world (R^T applied to rows); einsum avoids OpenBLAS threads, slow on a busy machine
+        dirs = np.einsum("nk,kj->nj", rays_cam, view.R)
         origins = np.broadcast_to(view.centre, dirs.shape)
         # with z = 1 in camera space, the ray parameter t equals camera depth z
         return self.cast(origins, dirs).reshape(cam.height, cam.width)
