@@ -99,27 +99,11 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views, min_region=cfg.min_region)
     area = texel_areas(scene.mesh, grid)
     hidden = cavities(scene, grid, cls == C.UNCOVERED, cfg)
-    areas = C.area_fractions(cls, area, hidden)
 
-    # the sweep's offset where it is confident; else the fields' offset where it is significant
-    displacement = work["sweep_offset"].copy()
-    if "align_significant" in work:
-        fill = ~np.isfinite(displacement) & work["align_significant"] & known
-        displacement[fill] = work["align_offset"][fill]
+    displacement = combined_displacement(work, known)
     magnitude = np.fmax(np.abs(displacement), align_normal if align_normal is not None else np.nan)
-    pos = grid.position.astype(np.float64)
-    top = cfg.regions_reported
-    ev = Evidence(
-        areas=areas,
-        geometry_regions=C.regions(cls == C.GEOMETRY, area, pos, displacement, magnitude, top),
-        uncovered_regions=C.regions((cls == C.UNCOVERED) & ~hidden, area, pos, displacement, magnitude, 1),
-        texture_regions=C.regions(cls == C.TEXTURE, area, pos, displacement, magnitude, top),
-        geometry_misplacement=geometry_p90(magnitude[cls == C.GEOMETRY]),
-        texture_residual=float(np.nanmedian(work["residual"][cls == C.TEXTURE])) if (cls == C.TEXTURE).any() else 0.0,
-        footprint_ratio=float(ratio), progress=progress, underfit_why=why,
-        global_shift_px=float(work.get("global_shift_px", 0.0)),
-        global_shift_units=float(work.get("global_shift_units", 0.0)),
-        used_alignment="align_misplacement" in work, views=len(obs))
+    ev = scan_evidence(work, grid, cls, area, hidden, displacement, magnitude, ratio, progress, why,
+                       len(obs), cfg)
     verdict = decide(ev, cfg, fix_tol)
     words = reasons(verdict, ev, cfg, fix_tol, scene.manifest.unit, scene.manifest.unit_m)
 
@@ -134,8 +118,38 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
                "geometry_misplacement_p90": ev.geometry_misplacement, "fit_tail_drop": progress.tail_drop,
                "global_shift_px": ev.global_shift_px, "used_alignment": ev.used_alignment}
     return Diagnosis(geometry=up(geometry), texture=up(texture), coverage=up(work["coverage"]),
-                     displacement=up(displacement), cls=cls_t, areas=areas, verdict=verdict, reasons=words,
+                     displacement=up(displacement), cls=cls_t, areas=ev.areas, verdict=verdict, reasons=words,
                      extra=extra, work=work, figures=figures)
+
+
+def combined_displacement(work: dict[str, np.ndarray], known: np.ndarray) -> np.ndarray:
+    """(D, D) float32 scene units: the sweep's offset where it is confident; else the alignment
+    fields' offset where it is significant; NaN elsewhere."""
+    displacement = work["sweep_offset"].copy()
+    if "align_significant" in work:
+        fill = ~np.isfinite(displacement) & work["align_significant"] & known
+        displacement[fill] = work["align_offset"][fill]
+    return displacement
+
+
+def scan_evidence(work: dict[str, np.ndarray], grid: TexelBuffer, cls: np.ndarray, area: np.ndarray,
+                  hidden: np.ndarray, displacement: np.ndarray, magnitude: np.ndarray, ratio: float,
+                  progress, why: list[str], views: int, cfg: DiagnoseConfig) -> Evidence:
+    """Scan-level figures (areas, largest regions, misplacement, residual) for the verdict."""
+    pos = grid.position.astype(np.float64)
+    top = cfg.regions_reported
+    tex = cls == C.TEXTURE
+    return Evidence(
+        areas=C.area_fractions(cls, area, hidden),
+        geometry_regions=C.regions(cls == C.GEOMETRY, area, pos, displacement, magnitude, top),
+        uncovered_regions=C.regions((cls == C.UNCOVERED) & ~hidden, area, pos, displacement, magnitude, 1),
+        texture_regions=C.regions(tex, area, pos, displacement, magnitude, top),
+        geometry_misplacement=geometry_p90(magnitude[cls == C.GEOMETRY]),
+        texture_residual=float(np.nanmedian(work["residual"][tex])) if tex.any() else 0.0,
+        footprint_ratio=float(ratio), progress=progress, underfit_why=why,
+        global_shift_px=float(work.get("global_shift_px", 0.0)),
+        global_shift_units=float(work.get("global_shift_units", 0.0)),
+        used_alignment="align_offset" in work, views=views)
 
 
 def evidence(obs: list[Observation], grid: TexelBuffer, texture_lin: np.ndarray, size: float,
