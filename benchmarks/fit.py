@@ -23,7 +23,7 @@ import shutil
 import sys
 import tempfile
 import time
-from dataclasses import asdict, replace
+from dataclasses import asdict, fields, replace
 from pathlib import Path
 
 os.environ.setdefault("PYOPENGL_PLATFORM", "egl")
@@ -67,6 +67,22 @@ def matmul_flops(threads: int, n: int = 2048, reps: int = 8) -> float:
     return 2.0 * n ** 3 / best
 
 
+SCALARS = {"int": int, "float": float, "str": str, "bool": bool}
+
+
+def parse_overrides(items: list[str]) -> dict:
+    """KEY=VALUE strings -> FitConfig fields, each converted to the field's type."""
+    types = {f.name: f.type for f in fields(FitConfig)}
+    out = {}
+    for item in items:
+        key, _, value = item.partition("=")
+        if key not in types:
+            raise SystemExit(f"--set: FitConfig has no field {key!r}")
+        t = types[key] if isinstance(types[key], type) else SCALARS[types[key]]  # string annotations
+        out[key] = value.lower() in ("1", "true", "yes") if t is bool else t(value)
+    return out
+
+
 def heldout_scores(scene, gbuffers, render) -> dict[str, float]:
     scores, weights = [], []
     for v in scene.manifest.heldout:
@@ -87,6 +103,8 @@ def main() -> None:
     ap.add_argument("--eval-every", type=int, default=25)
     ap.add_argument("--long-factor", type=int, default=4, help="reference run length / default (0 = skip)")
     ap.add_argument("--threads", type=int, default=0, help="torch threads (0 = all cores)")
+    ap.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                    help="FitConfig override for every run, e.g. --set lr_align=0.1 (repeatable)")
     ap.add_argument("--ablations", action="store_true")
     args = ap.parse_args()
     logging.basicConfig(level=logging.INFO, format="%(message)s")
@@ -103,6 +121,7 @@ def main() -> None:
     log.info("baseline (%d texels): %s", size, baseline)
 
     cfg = FitConfig(steps=args.steps, eval_every=args.eval_every, checkpoint_every=10 ** 9, threads=args.threads)
+    cfg = replace(cfg, **parse_overrides(args.set))
     threads = cfg.threads or os.cpu_count() or 1
     mm = matmul_flops(threads)
 

@@ -24,7 +24,7 @@ from featuretex.scene.loaded import load_scene
 
 from scenes import smooth_texture
 
-SHORT = dict(steps=8, eval_every=4, checkpoint_every=1000, crop=48, batch=2, threads=1)
+SHORT = dict(steps=8, eval_every=4, checkpoint_every=1000, crop=48, batch=2, threads=1, rebake_at=2)
 
 
 @pytest.fixture(scope="module")
@@ -163,3 +163,19 @@ def test_resume_after_interruption_matches_uninterrupted_run(tiny, tmp_path):
     w0, w1 = _weights(whole.model), _weights(resumed.model)
     assert all(torch.equal(w0[k], w1[k]) for k in w0)
     assert resumed.history["loss"] == whole.history["loss"]
+
+
+def test_registered_average_with_no_corrections_is_the_classical_bake(tiny, tmp_path):
+    """Before any alignment or exposure is learned, re-averaging the photos must give exactly what
+    the classical bake (featuretex.bake.baseline, written independently of the fit) gives."""
+    from featuretex.fit.loop import build_model
+    from featuretex.fit.rebake import registered_average
+
+    scene, gbuffers, base = tiny
+    fitted = list(scene.manifest.fitted)
+    model = build_model(FitConfig(texture_size=128), base.texture_lin, [v.name for v in fitted],
+                        [(v.camera.width, v.camera.height) for v in fitted], 0, np.random.default_rng(0))
+    texels = rasterise_uv(scene.mesh, 128)
+    avg, seen = registered_average(scene, gbuffers, texels, model, erode_px=2)
+    assert np.array_equal(seen, base.seen)
+    np.testing.assert_allclose(avg[seen], base.texture_lin[seen], atol=1e-5)

@@ -27,6 +27,7 @@ from featuretex.errors import input_error
 from featuretex.fit import checkpoint as ckpt
 from featuretex.fit.config import FitConfig
 from featuretex.fit.losses import masked_l1, masked_ssim, psnr, srgb_encode_leaky
+from featuretex.fit.rebake import rebake_colour_layer
 from featuretex.fit.render import render_viewdata
 from featuretex.fit.sampler import CropSampler, assemble, warped_targets
 from featuretex.fit.viewdata import PHOTO_MARGIN, ViewData, prepare_view
@@ -36,6 +37,7 @@ from featuretex.model.lod import face_uv_gradients
 from featuretex.model.scene_model import SceneModel
 from featuretex.progress import Progress
 from featuretex.raster.gbuffer import GBuffer
+from featuretex.raster.uvspace import rasterise_uv
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
 
@@ -406,6 +408,14 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
                     raise RuntimeError(f"fit diverged at step {state.step} (loss {loss}); lower fit.lr")
                 state.step += 1
                 state.window.append(loss)
+                if cfg.rebake_at and state.step == cfg.rebake_at:
+                    t = time.perf_counter()
+                    texels = rasterise_uv(scene.mesh, model.texture.size)
+                    n = rebake_colour_layer(scene, gbuffers, texels, model, cfg.edge_erode_px)
+                    opt.state.pop(model.texture.colour, None)   # its moments belong to the old texture
+                    timings["rebake_s"] = time.perf_counter() - t
+                    log.info("fit: colour layer re-averaged from the registered photos at step %d (%d texels, "
+                             "%.1f s)", state.step, n, timings["rebake_s"])
                 if state.step % TRAIN_LOG_EVERY == 0:
                     state.history["train"]["step"].append(state.step)
                     state.history["train"]["loss"].append(round(float(np.mean(state.window[-TRAIN_LOG_EVERY:])), 6))
