@@ -9,6 +9,10 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, Iterator
 
+# marks a temporary file of `atomic_path`; a SIGKILL between write and rename leaves one behind,
+# hidden (dot name) and removed by `remove_partials` when the run starts again
+PARTIAL_TAG = ".partial-"
+
 
 @contextmanager
 def atomic_path(target: str | Path, suffix: str | None = None) -> Iterator[Path]:
@@ -19,7 +23,7 @@ def atomic_path(target: str | Path, suffix: str | None = None) -> Iterator[Path]
     """
     target = Path(target)
     target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=suffix or "".join(target.suffixes),
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}{PARTIAL_TAG}", suffix=suffix or "".join(target.suffixes),
                                dir=target.parent)
     os.close(fd)
     tmp_path = Path(tmp)
@@ -51,3 +55,11 @@ def write_text(target: str | Path, text: str) -> None:
 
 def write_json(target: str | Path, obj: Any) -> None:
     write_text(target, json.dumps(obj, indent=2, sort_keys=False, allow_nan=False) + "\n")
+
+
+def remove_partials(folder: str | Path) -> list[Path]:
+    """Delete the temporary files that killed writers left anywhere under `folder`; return them."""
+    found = [p for p in Path(folder).rglob(f".*{PARTIAL_TAG}*") if p.is_file()]
+    for p in found:
+        p.unlink(missing_ok=True)
+    return found

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from featuretex import plugins
-from featuretex.atomic import atomic_path, write_json
+from featuretex.atomic import atomic_path, remove_partials, write_json
 from featuretex.bake.baseline import bake_baseline
 from featuretex.bake.neural import bake_model, score_bake
 from featuretex.bake.texel_size import auto_texture_size
@@ -144,6 +144,8 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     t_start = time.perf_counter()
     scene = load_scene(resolve_scene_path(cfg.scene))
     out.mkdir(parents=True, exist_ok=True)
+    for leftover in remove_partials(out):  # a killed run's temporary files; never a finished output
+        log.info("removed %s, left by an interrupted write", leftover)
     book = StageBook(out)
     scene_key = key_of(scene.content_hash)
 
