@@ -38,12 +38,12 @@ import os, signal, sys
 from contextlib import contextmanager
 from pathlib import Path
 import featuretex.atomic as atomic
-real = atomic.atomic_path
+victim, real = sys.argv[1], atomic.atomic_path
 @contextmanager
 def dying(target, suffix=None):
     with real(target, suffix) as tmp:
         yield tmp
-        if Path(target).name == sys.argv[1]:
+        if Path(target).name == victim:
             data = tmp.read_bytes()
             tmp.write_bytes(data[: len(data) // 2])
             os.kill(os.getpid(), signal.SIGKILL)

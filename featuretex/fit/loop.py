@@ -316,12 +316,14 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     key = ckpt.fit_hash(config_hash, cfg, seed)
     fit_dir = run_dir / "fit"
     model_path, ck_path = fit_dir / "model.pt", fit_dir / "checkpoint.pt"
+    # the same thread count whether fitting or loading: later stages render with it, and torch's
+    # float sums depend on how work is split between threads
+    torch.set_num_threads(cfg.threads or os.cpu_count() or 1)
     if model_path.is_file():
         saved = ckpt.load(model_path)
         if saved.get("hash") == key:
             return load_fitted(fit_dir, saved)
     t_start = time.perf_counter()
-    torch.set_num_threads(cfg.threads or os.cpu_count() or 1)
     torch.manual_seed(seed)
     rng = np.random.default_rng(seed)
 
