@@ -62,9 +62,10 @@ SYMBOLS = {"meter": "m", "metre": "m", "centimeter": "cm", "centimetre": "cm", "
            "millimetre": "mm", "inch": "in", "foot": "ft"}
 
 
-def where(r: Region, unit: str) -> str:
-    c = r.centre
-    return f"around ({c[0]:.3g}, {c[1]:.3g}, {c[2]:.3g}) {SYMBOLS.get(unit, unit)}"
+def where(r: Region, unit: str, unit_m: float) -> str:
+    """The region's area-weighted centre in the scan's own axes, as lengths a person reads."""
+    x, y, z = (length(float(c), unit, unit_m) for c in r.centre)
+    return f"around x {x}, y {y}, z {z}"
 
 
 def pct(x: float) -> str:
@@ -97,7 +98,7 @@ def reasons(verdict: str, ev: Evidence, cfg: DiagnoseConfig, fix_tol: float, uni
     ou = open_uncovered(a)
     if ou > 0 and (verdict == "rescan" or ou > 0.2 * cfg.rescan_uncovered):
         r = ev.uncovered_regions[0] if ev.uncovered_regions else None
-        spot = f", mostly {where(r, unit)}," if r is not None else ""
+        spot = f", mostly {where(r, unit, unit_m)}," if r is not None else ""
         act = "photograph it before anything else" if ou > cfg.rescan_uncovered else "below the rescan limit"
         out.append(f"{pct(ou)} of the surface{spot} was seen by fewer than {cfg.min_views} usable "
                    f"photos (rescan limit {pct(cfg.rescan_uncovered)}): {act}")
@@ -114,7 +115,7 @@ def reasons(verdict: str, ev: Evidence, cfg: DiagnoseConfig, fix_tol: float, uni
                         f"the photos see the surface {side} the mesh")
             else:
                 what = f"is misplaced by about {L(r.misplacement)} against the photos"
-            out.append(f"{pct(r.fraction)} of the surface, {where(r, unit)}, {what}")
+            out.append(f"{pct(r.fraction)} of the surface, {where(r, unit, unit_m)}, {what}")
         if verdict == "rescan" and a["geometry_limited"] > cfg.rescan_geometry:
             out.append(f"{pct(a['geometry_limited'])} of the surface is geometry-limited, more than a fix can "
                        f"recover (limit {pct(cfg.rescan_geometry)})")

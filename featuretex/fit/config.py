@@ -11,7 +11,7 @@ from dataclasses import dataclass
 @dataclass
 class FitConfig:
     # schedule
-    steps: int = 800                 # optimisation steps (the cap; a plateau may stop earlier)
+    steps: int = 600                 # optimisation steps (the cap; a plateau may stop earlier)
     warmup: int = 20                 # steps of linear learning-rate warm-up
     final_lr_frac: float = 0.1       # cosine decay down to this fraction of each learning rate
     lr: float = 5e-3                 # feature texture (linear-light units per step)
