@@ -132,7 +132,7 @@ def main() -> None:
                                   if ok_d.sum() > 2 else float("nan"))
         out[f"{name}faces_with_displacement"] = int(ok_d.sum())
         out[f"{name}verdict"] = d.verdict
-    for k in ("align_offset", "align_misplacement", "sweep_evidence", "consistency"):
+    for k in ("align_offset", "align_misplacement", "sweep_evidence", "consistency", "silhouette_offset"):
         if k in dg.extra:
             h = per_face(np.abs(dg.extra[k]), texels, F)
             ok = np.isfinite(h) & np.isfinite(err)

@@ -20,13 +20,14 @@ def ramp(x: np.ndarray) -> np.ndarray:
 
 
 def geometry_field(sweep_mag: np.ndarray, align_mag: np.ndarray | None, tol: float,
-                   known: np.ndarray) -> np.ndarray:
-    """(D, D) float32 in 0..1: the larger misplacement of the sweep (its graded evidence, scene
-    units) and of the alignment fields (|offset along the normal|), over the tolerance, through
-    `ramp`; NaN where not `known`."""
+                   known: np.ndarray, silhouette_mag: np.ndarray | None = None) -> np.ndarray:
+    """(D, D) float32 in 0..1: the largest misplacement of the sweep (its graded evidence, scene
+    units), of the alignment fields (|offset along the normal|) and of the silhouettes (|offset
+    along the normal|), over the tolerance, through `ramp`; NaN where not `known`."""
     e = np.where(np.isfinite(sweep_mag), np.abs(sweep_mag), 0.0)
-    if align_mag is not None:
-        e = np.maximum(e, np.where(np.isfinite(align_mag), align_mag, 0.0))
+    for extra in (align_mag, silhouette_mag):
+        if extra is not None:
+            e = np.maximum(e, np.where(np.isfinite(extra), np.abs(extra), 0.0))
     return np.where(known, ramp(e / tol), np.nan).astype(np.float32)
 
 

@@ -40,6 +40,25 @@ class DiagnoseConfig:
     sweep_min_views: int = 5         # and at least this many views must see the texel
     # alignment evidence (the fit's per-view fields)
     align_remove_global: bool = True  # subtract each view's median shift (calibration) before local use
+    # silhouette consistency (silhouette.py): the mesh's outline against the photo masks
+    silhouette: bool = True          # use it when views have photo masks
+    silhouette_max_cos: float = 0.35  # an outline pixel counts when |cos(normal, ray)| <= this (>= ~70 deg):
+                                     # a pixel centre sits < 1 px inside the outline, which on a surface of
+                                     # radius rho px gives cos ~ sqrt(2 / rho) (0.2 at 50 px); the rim of a
+                                     # hole or an open edge seen from the front has a larger cos
+    silhouette_deadband_px: float = 1.0  # |gap| <= this (px) is mask thresholding / pixel quantisation: 0
+    silhouette_max_gap_px: float = 20.0  # gaps are clipped to this (px): beyond it the nearest mask edge is
+                                     # as likely another part of the object as the same surface
+    silhouette_min_pixels: int = 50  # a view's outline needs this many pixels for its calibration fit
+    silhouette_remove_global: bool = True  # subtract each view's robust global mask-vs-mesh fit (shift,
+                                     # in-plane rotation, uniform dilation: calibration, mask threshold)
+    silhouette_spread_fraction: float = 0.02  # Gaussian sigma of the spread over the surface, fraction of size:
+                                     # outline lines of ~10 views per ring around an object of radius
+                                     # ~size / 5 lie ~0.06 size apart, so a reach of 2 sigma covers the
+                                     # space between neighbouring lines without blurring a defect away
+    silhouette_spread_units: float = 0.0  # sigma in scene units (> 0 overrides the fraction)
+    silhouette_min_support: float = 0.135  # spread only where the measurement support is >= this:
+                                     # exp(-2), i.e. within 2 sigma of one line of outline texels
     # tolerances of the per-texel fields (0.5 is reached at the tolerance)
     geometry_tol_fraction: float = 0.004  # misplacement that counts as geometry error, fraction of size
     geometry_tol_units: float = 0.0

@@ -7,6 +7,7 @@ Evidence is gathered on a working UV grid of about one photo pixel per texel (at
   sweep         best offset along the normal, NCC plane sweep           (sweep.py)
   alignment     the fit's per-view fields in scene units (if given)     (alignment.py)
   under-fit     residual the views agree on but the texture misses      (underfit.py)
+  silhouette    mesh outline against the photo masks, in scene units     (silhouette.py)
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ from featuretex.diagnose.consistency import Samples, consensus, loo_ncc
 from featuretex.diagnose.exposure import exposure
 from featuretex.diagnose.grid import Resampler, footprint_ratio, texel_areas, texel_edge, working_size
 from featuretex.diagnose.observe import Observation, observe
+from featuretex.diagnose.silhouette import silhouette_evidence
 from featuretex.diagnose.sweep import sweep
 from featuretex.diagnose.underfit import consistent_residual, fit_progress, underfit_weight
 from featuretex.diagnose.verdict import Evidence, decide, geometry_p90, reasons
@@ -82,6 +84,11 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
 
     obs = observe(scene, gbuffers, grid, cell, corr, cfg)
     work = evidence(obs, grid, texture_lin, size, cfg)
+    if cfg.silhouette and obs:
+        sil = silhouette_evidence(scene, gbuffers, grid, cell, cfg)
+        if sil is not None:
+            work.update(silhouette_offset=sil.offset, silhouette_raw=sil.raw, silhouette_support=sil.support,
+                        silhouette_footprint=sil.footprint)
     half = cfg.sweep_units if cfg.sweep_units > 0 else cfg.sweep_fraction * size
     geo_tol = cfg.geometry_tol_units if cfg.geometry_tol_units > 0 else cfg.geometry_tol_fraction * size
     fix_tol = cfg.fix_displacement_units if cfg.fix_displacement_units > 0 else cfg.fix_displacement_fraction * size
@@ -94,7 +101,8 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     # absorbed by the texture, and the normal part is what wrong geometry causes (on the demo with
     # an 800-step fit, AUROC per face 0.82 for |offset| against 0.70 for the lateral RMS)
     align_normal = np.abs(work["align_offset"]) if "align_offset" in work else None
-    geometry = C.geometry_field(work["sweep_evidence"], align_normal, geo_tol, known)
+    geometry = C.geometry_field(work["sweep_evidence"], align_normal, geo_tol, known,
+                                work.get("silhouette_offset"))
     texture = C.texture_field(work["residual"], work["agreement"], cfg.texture_tol, weight, known)
     cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views, min_region=cfg.min_region)
     area = texel_areas(scene.mesh, grid)
@@ -112,7 +120,8 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     cls_t = up(cls.astype(np.float32), mode="max")
     cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
     extra = {k: up(work[k]) for k in ("consistency", "consistency_aligned", "residual", "align_misplacement",
-                                      "align_offset", "sweep_gain", "sweep_score", "sweep_evidence") if k in work}
+                                      "align_offset", "sweep_gain", "sweep_score", "sweep_evidence",
+                                      "silhouette_offset", "silhouette_raw") if k in work}
     figures = {"working_grid": D, "texture_size": T, "footprint_ratio": float(ratio), "views": len(obs),
                "sweep_half_range": float(half), "geometry_tol": float(geo_tol), "fix_tol": float(fix_tol),
                "geometry_misplacement_p90": ev.geometry_misplacement, "fit_tail_drop": progress.tail_drop,
@@ -124,11 +133,18 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
 
 def combined_displacement(work: dict[str, np.ndarray], known: np.ndarray) -> np.ndarray:
     """(D, D) float32 scene units: the sweep's offset where it is confident; else the alignment
-    fields' offset where it is significant; NaN elsewhere."""
+    fields' offset where it is significant; else the silhouettes' offset where it exceeds one
+    outline pixel (below that it is mask quantisation); NaN elsewhere."""
     displacement = work["sweep_offset"].copy()
     if "align_significant" in work:
         fill = ~np.isfinite(displacement) & work["align_significant"] & known
         displacement[fill] = work["align_offset"][fill]
+    if "silhouette_offset" in work:
+        s = work["silhouette_offset"]
+        with np.errstate(invalid="ignore"):
+            big = np.abs(s) >= work["silhouette_footprint"]
+        fill = ~np.isfinite(displacement) & big & known
+        displacement[fill] = s[fill]
     return displacement
 
 
