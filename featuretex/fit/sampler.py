@@ -113,12 +113,13 @@ def warped_targets(batch: CropBatch, corrections: ViewCorrections | None, align:
         src = src + corrections.displacement(batch.view_idx, batch.px)
     out = []
     S = batch.px.shape[1]
+    s = src.detach()
+    lo, hi = s.amin(dim=(1, 2)).tolist(), s.amax(dim=(1, 2)).tolist()   # (B, 2) extent of the samples
     for b, vd in enumerate(batch.views):
         H, W = vd.shape
-        s = src[b].detach()
         x0, y0 = int(batch.px[b, 0, 0, 0]), int(batch.px[b, 0, 0, 1])
-        c0, c1 = photo_span(float(s[..., 0].min()), float(s[..., 0].max()), x0, x0 + S, W)
-        r0, r1 = photo_span(float(s[..., 1].min()), float(s[..., 1].max()), y0, y0 + S, H)
+        c0, c1 = photo_span(lo[b][0], hi[b][0], x0, x0 + S, W)
+        r0, r1 = photo_span(lo[b][1], hi[b][1], y0, y0 + S, H)
         photo = vd.photo_window(r0, r1, c0, c1)
         scale = torch.tensor([c1 - c0 - 1, r1 - r0 - 1], dtype=torch.float32)
         g = 2.0 * (src[b] - torch.tensor([c0, r0], dtype=torch.float32)) / scale - 1.0

