@@ -11,10 +11,11 @@ decoded once, mesh), the G-buffer stage from a cold cache (written to disk, memo
 featuretex/raster/cache.py) and the fit stage (featuretex.fit, `--fit-steps` steps). Configurations:
 (small faces, few views), (faces, few views), (faces, views) -> growth with faces and with views.
 
-The fit holds per-view tensors of every fitted view in memory (featuretex/fit/viewdata.py); the
-benchmark measures their bytes per pixel on one view, projects them to all views, and if that
-exceeds --fit-budget-gb it fits the largest view subset within the budget and says so (no run
-here risks the machine's memory). Issue 7 target: peak RSS <= 6 GB. --fit-threads defaults to 1:
+The fit holds compact per-view data of every fitted view in memory (featuretex/fit/viewdata.py:
+photo code values and masks; geometry is recomputed per crop from the G-buffer files) plus mesh
+tables shared by all views; the benchmark measures the bytes of one view (and the tables),
+projects them to all views, and if that exceeds --fit-budget-gb it fits the largest view subset
+within the budget and says so (no run here risks the machine's memory). Issue 7 target: peak RSS <= 6 GB. --fit-threads defaults to 1:
 on a shared 2-core machine under load, 2 torch threads made a step 8x slower than 1 (measured).
 
 Last printed line: a JSON object with at least peak_rss_gb, gbuffer_rays_per_s, fit_pixels_per_s.
@@ -112,18 +113,26 @@ def _subset(scene, n_views: int):
     return Scene(manifest=man, mesh=scene.mesh)
 
 
-def _viewdata_bytes(scene, gbuffers) -> int:
-    """Bytes of the fit's per-view tensors for one fitted view (measured, not estimated)."""
-    from featuretex.fit.viewdata import prepare_view
-    from featuretex.model.lod import face_uv_gradients
+def _viewdata_bytes(scene, gbuffers) -> tuple[int, int]:
+    """(bytes one fitted view holds in memory, bytes of the mesh tables all views share), measured:
+    the nbytes of every array / tensor the fit's ViewData holds. Its G-buffer is a memory map of
+    the cache file read per crop with pread, so it is not resident and not counted."""
+    from featuretex.fit.viewdata import mesh_tables, prepare_view
 
     v = scene.manifest.fitted[0]
-    vd = prepare_view(scene, gbuffers[v.name], v, 0, erode_px=2, grads=face_uv_gradients(scene.mesh))
+    tables = mesh_tables(scene.mesh)
+    vd = prepare_view(scene, gbuffers[v.name], v, 0, erode_px=2, tables=tables)
     total = 0
-    for f in dataclasses.fields(vd):
+    import torch
+
+    for f in dataclasses.fields(vd):   # arrays held directly: the shared tables are counted once, apart
         x = getattr(vd, f.name)
-        total += x.element_size() * x.nelement() if hasattr(x, "element_size") else getattr(x, "nbytes", 0)
-    return total
+        if isinstance(x, torch.Tensor):
+            total += x.element_size() * x.nelement()
+        elif isinstance(x, np.ndarray) and not isinstance(x, np.memmap):
+            total += x.nbytes
+    assert total == vd.resident_nbytes()
+    return total, tables.nbytes
 
 
 def child(scene_yaml: Path, n_views: int, cache: Path, fit_steps: int, fit_budget_gb: float,
@@ -150,11 +159,14 @@ def child(scene_yaml: Path, n_views: int, cache: Path, fit_steps: int, fit_budge
                gbuffer_cache_gb=round(sum(p.stat().st_size for p in cache.glob("*.npy")) / 2**30, 3),
                peak_rss_gb_gbuffer=round(rss_peak_gb(), 3), rendered=rendered)
 
-    per_view = _viewdata_bytes(scene, gbuffers)
+    per_view, shared = _viewdata_bytes(scene, gbuffers)
     n_fit_all = len(scene.manifest.fitted) + len(scene.manifest.heldout)
+    h, w = next(iter(gbuffers.values())).shape
     out["fit_viewdata_mb_per_view"] = round(per_view / 2**20, 1)
-    out["fit_viewdata_gb_all_views"] = round(per_view * n_fit_all / 2**30, 2)
-    n_fit = min(len(scene.views), max(3, int(fit_budget_gb * 2**30 // per_view)))
+    out["fit_viewdata_bytes_per_pixel"] = round(per_view / (h * w), 2)
+    out["fit_mesh_tables_mb"] = round(shared / 2**20, 1)
+    out["fit_viewdata_gb_all_views"] = round((per_view * n_fit_all + shared) / 2**30, 2)
+    n_fit = min(len(scene.views), max(3, int((fit_budget_gb * 2**30 - shared) // per_view)))
     fit_scene_ = _subset(scene, n_fit) if n_fit < len(scene.views) else scene
     out["fit_views_used"] = len(fit_scene_.views)
     cfg = FitConfig(steps=fit_steps, eval_every=10 * fit_steps, checkpoint_every=10 * fit_steps, threads=fit_threads)

@@ -30,10 +30,9 @@ from featuretex.fit.losses import masked_l1, masked_ssim, psnr, srgb_encode_leak
 from featuretex.fit.rebake import rebake_colour_layer
 from featuretex.fit.render import render_viewdata
 from featuretex.fit.sampler import CropSampler, assemble, warped_targets
-from featuretex.fit.viewdata import PHOTO_MARGIN, ViewData, prepare_view
+from featuretex.fit.viewdata import ViewData, mesh_tables, prepare_view
 from featuretex.model.corrections import ViewCorrections, grid_shape
 from featuretex.model.decoders import parameter_count
-from featuretex.model.lod import face_uv_gradients
 from featuretex.model.scene_model import SceneModel
 from featuretex.progress import Progress
 from featuretex.raster.gbuffer import GBuffer
@@ -192,17 +191,17 @@ def evaluate(model: SceneModel, views: list[ViewData]) -> tuple[float | None, fl
     for vd in views:
         colour, residual = render_viewdata(model, vd)
         img = colour if residual is None else colour + residual
-        m = vd.score_mask.numpy()
+        m = vd.score_mask
         n = int(m.sum())
         if n == 0:
             continue
-        m_ = PHOTO_MARGIN
-        photo = vd.photo[:, m_:-m_, m_:-m_].permute(1, 2, 0).numpy()
+        H, W = vd.shape
+        photo = vd.photo_window(0, H, 0, W).permute(1, 2, 0).numpy()
         a, b = linear_to_srgb(img), linear_to_srgb(photo)
         ps.append(psnr(float(((a - b)[m] ** 2).mean())))
         ta = torch.from_numpy(a).permute(2, 0, 1)[None]
         tb = torch.from_numpy(b).permute(2, 0, 1)[None]
-        ss.append(float(masked_ssim(ta, tb, vd.score_mask[None])))
+        ss.append(float(masked_ssim(ta, tb, torch.from_numpy(m)[None])))
         ws.append(n)
     if not ws:
         return None, None
@@ -335,10 +334,10 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     if cfg.reference_view and cfg.reference_view not in names:
         raise input_error(scene.file, f"fit.reference_view '{cfg.reference_view}' is not a fitted view",
                           field="fit.reference_view")
-    grads = face_uv_gradients(scene.mesh)
-    train_views = [prepare_view(scene, gbuffers[v.name], v, i, erode_px=cfg.edge_erode_px, grads=grads)
+    tables = mesh_tables(scene.mesh)
+    train_views = [prepare_view(scene, gbuffers[v.name], v, i, erode_px=cfg.edge_erode_px, tables=tables)
                    for i, v in enumerate(fitted)]
-    eval_views = [prepare_view(scene, gbuffers[v.name], v, -1, erode_px=0, grads=grads) for v in held]
+    eval_views = [prepare_view(scene, gbuffers[v.name], v, -1, erode_px=0, tables=tables) for v in held]
     sizes = [(v.camera.width, v.camera.height) for v in fitted]
     model = build_model(cfg, fill_unmeasured(init_texture_lin, init_valid), names, sizes, reference, rng)
     log.info(describe(model))

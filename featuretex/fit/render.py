@@ -19,33 +19,23 @@ from featuretex.scene.manifest import View
 BAND_PIXELS = 1 << 16  # pixels per band: bounds activations to a few tens of MB
 
 
-def _bbox(mask: np.ndarray) -> tuple[int, int, int, int] | None:
-    rows, cols = np.flatnonzero(mask.any(1)), np.flatnonzero(mask.any(0))
-    if len(rows) == 0:
-        return None
-    return int(rows[0]), int(rows[-1]) + 1, int(cols[0]), int(cols[-1]) + 1
-
-
 @torch.no_grad()
 def render_viewdata(model: SceneModel, vd: ViewData) -> tuple[np.ndarray, np.ndarray | None]:
     """(H, W, 3) head colour and (H, W, 3) screen residual (None without one), linear, 0 off the mesh."""
     H, W = vd.shape
     colour = np.zeros((H, W, 3), np.float32)
     residual = np.zeros((H, W, 3), np.float32) if model.decoder.screen is not None else None
-    box = _bbox(vd.cover.numpy())
-    if box is None:
+    if vd.bbox is None:
         return colour, residual
-    r0, r1, c0, c1 = box
+    r0, r1, c0, c1 = vd.bbox
     halo = model.decoder.halo
     ca, cb = max(0, c0 - halo), min(W, c1 + halo)
     band = max(1, BAND_PIXELS // max(1, cb - ca))
     for top in range(r0, r1, band):
         bot = min(r1, top + band)
         ra, rb = max(0, top - halo), min(H, bot + halo)
-        cov = vd.cover[ra:rb, ca:cb]
-        batch = PixelBatch(cover=cov[None], uv=vd.uv[ra:rb, ca:cb][cov], rho=vd.rho[ra:rb, ca:cb][cov],
-                           geo=vd.geo[:, ra:rb, ca:cb][None])
-        out = model(batch)
+        cov, uv, rho, geo = vd.crop(slice(ra, rb), slice(ca, cb))
+        out = model(PixelBatch(cover=cov[None], uv=uv, rho=rho, geo=geo[None]))
         keep = slice(top - ra, top - ra + (bot - top))
         colour[top:bot, ca:cb] = out.colour[0, :, keep].permute(1, 2, 0).numpy()
         if residual is not None and out.residual is not None:

@@ -153,7 +153,7 @@ def decode_image(path: Path, manifest_file: str, view: str, fld: str) -> np.ndar
 
 
 @lru_cache(maxsize=2)
-def _linear_table(dtype: str) -> np.ndarray:
+def linear_table(dtype: str) -> np.ndarray:
     """sRGB code value -> linear light for every 8- or 16-bit level (the IEC curve, tabulated once)."""
     top = np.iinfo(dtype).max
     return srgb_to_linear(np.arange(top + 1, dtype=np.float32) / np.float32(top))
@@ -166,13 +166,17 @@ def _check_size(a: np.ndarray, path: Path, manifest_file: str, view: str, fld: s
                     f"says {size[0]}x{size[1]}", hint="fix the camera's width/height or use the original photo")
 
 
+def rgb_levels(a: np.ndarray) -> np.ndarray:
+    """(H, W, C) uint8/uint16 code values -> (H, W, 3) of the same dtype (grey replicated, alpha dropped)."""
+    return np.repeat(a[..., :1], 3, axis=2) if a.shape[2] in (1, 2) else a[..., :3]
+
+
 def photo_from_levels(a: np.ndarray) -> np.ndarray:
     """(H, W, C) uint8/uint16 sRGB code values -> (H, W, 3) float32 linear light (alpha dropped).
 
     A table lookup gives the same numbers as srgb_to_linear(a / max) at a fraction of the time.
     """
-    rgb = np.repeat(a[..., :1], 3, axis=2) if a.shape[2] in (1, 2) else a[..., :3]   # grey: replicate
-    return _linear_table(a.dtype.name)[rgb]
+    return linear_table(a.dtype.name)[rgb_levels(a)]
 
 
 def mask_from_array(a: np.ndarray) -> np.ndarray:
@@ -182,11 +186,18 @@ def mask_from_array(a: np.ndarray) -> np.ndarray:
     return a.mean(axis=2) >= 0.5
 
 
-def load_photo(path: Path, manifest_file: str, view: str, size: tuple[int, int]) -> np.ndarray:
-    """Decode a photo to (H, W, 3) float32 linear light. `size` = (width, height) expected."""
+def load_photo_levels(path: Path, manifest_file: str, view: str, size: tuple[int, int]) -> np.ndarray:
+    """Decode a photo to (H, W, 3) uint8/uint16 sRGB code values; linear_table(dtype)[levels] is
+    exactly load_photo's result. `size` = (width, height) expected."""
     a = decode_levels(path, manifest_file, view, "image")
     _check_size(a, path, manifest_file, view, "image", size)
-    return photo_from_levels(a)
+    return rgb_levels(a)
+
+
+def load_photo(path: Path, manifest_file: str, view: str, size: tuple[int, int]) -> np.ndarray:
+    """Decode a photo to (H, W, 3) float32 linear light. `size` = (width, height) expected."""
+    levels = load_photo_levels(path, manifest_file, view, size)
+    return linear_table(levels.dtype.name)[levels]
 
 
 def load_mask(path: Path | None, manifest_file: str, view: str, size: tuple[int, int]) -> np.ndarray | None:

@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from featuretex.errors import input_error
-from featuretex.scene.images import SWAPS_AXES, load_mask, load_photo, verify_image
+from featuretex.scene.images import SWAPS_AXES, load_mask, load_photo, load_photo_levels, verify_image
 from featuretex.scene.manifest import Manifest, View, read_manifest
 from featuretex.scene.mesh import SceneMesh, load_mesh
 
@@ -49,6 +49,11 @@ class Scene:
         while len(self._photos) > 1 and sum(p.nbytes for p in self._photos.values()) > self.photo_cache_bytes:
             self._photos.popitem(last=False)
         return a
+
+    def photo_levels(self, view: View) -> np.ndarray:
+        """(H, W, 3) uint8/uint16 sRGB code values of the photo, decoded anew (not cached): a third
+        (8-bit) of the float photo's bytes; images.linear_table(dtype)[levels] == photo(view)."""
+        return load_photo_levels(view.image, self.file, view.name, (view.camera.width, view.camera.height))
 
     def photo_mask(self, view: View) -> np.ndarray | None:
         """(H, W) bool object mask from the mask file, or None when the view has none."""
