@@ -140,11 +140,6 @@ def crop_geometry(gb: GBuffer, origin: tuple[int, int], view: View, t: MeshTable
     return (tri >= 0).reshape(h, w), att[:, :2].copy(), footprint_of(J), geo.reshape(h, w, GEO_CHANNELS)
 
 
-def _unit(x: np.ndarray) -> np.ndarray:
-    """(N, 3) rows scaled to unit length (as GBuffer.normal: length floored at 1e-12)."""
-    return x / np.maximum(np.sqrt(np.einsum("ij,ij->i", x, x)), 1e-12)[:, None]
-
-
 def _bbox(mask: np.ndarray) -> tuple[int, int, int, int] | None:
     rows, cols = np.flatnonzero(mask.any(1)), np.flatnonzero(mask.any(0))
     if len(rows) == 0:
