@@ -31,6 +31,7 @@ class MipTaps:
     weight: torch.Tensor   # (M,) float32 filter weights, summing to 1 per pixel
     offsets: torch.Tensor  # (N,) int64 start of each pixel's taps in `index`
     levels: int            # pyramid levels the taps reach (1 = level 0 only)
+    pixel: torch.Tensor    # (M,) int64 pixel each tap belongs to (the backward pass scatters by it)
 
 
 def level_sizes(size: int, levels: int) -> list[int]:
@@ -103,7 +104,8 @@ def mip_taps(uv: torch.Tensor, rho: torch.Tensor | None, size: int, max_level: i
         pos1 = (offsets[two] + 4)[:, None] + torch.arange(4)
         index[pos1.reshape(-1)] = i1.reshape(-1)
         weight[pos1.reshape(-1)] = w1.reshape(-1)
-    return MipTaps(index=index, weight=weight, offsets=offsets, levels=needed)
+    pixel = torch.repeat_interleave(torch.arange(n), counts)
+    return MipTaps(index=index, weight=weight, offsets=offsets, levels=needed, pixel=pixel)
 
 
 def build_pyramid(level0: torch.Tensor, levels: int) -> torch.Tensor:
@@ -117,11 +119,36 @@ def build_pyramid(level0: torch.Tensor, levels: int) -> torch.Tensor:
     return rows[0] if levels == 1 else torch.cat(rows, 0)
 
 
+class _TapSum(torch.autograd.Function):
+    """out[n] = sum of weight[k] * table[index[k]] over the taps k of pixel n.
+
+    Forward is embedding_bag's weighted sum; the backward pass is one `index_add_` of the weighted
+    output gradients into a zero table. embedding_bag's own backward sorts the taps and was
+    measured 4x slower (26 vs 6 ms for 313k taps of a 1024^2 x 3 pyramid, 2 threads); index_add_
+    on the CPU adds in tap order, so the result is deterministic.
+    """
+
+    @staticmethod
+    def forward(ctx, table: torch.Tensor, index: torch.Tensor, weight: torch.Tensor, offsets: torch.Tensor,
+                pixel: torch.Tensor) -> torch.Tensor:
+        ctx.save_for_backward(index, weight, pixel)
+        ctx.rows = table.shape[0]
+        return F.embedding_bag(index, table, offsets, mode="sum", per_sample_weights=weight)
+
+    @staticmethod
+    def backward(ctx, grad: torch.Tensor):  # type: ignore[override]
+        index, weight, pixel = ctx.saved_tensors
+        g = grad.index_select(0, pixel).mul_(weight[:, None])
+        return grad.new_zeros(ctx.rows, grad.shape[1]).index_add_(0, index, g), None, None, None, None
+
+
 def sample_taps(table: torch.Tensor, taps: MipTaps) -> torch.Tensor:
     """(N, C) filtered values for the taps (differentiable with respect to `table`)."""
     if taps.offsets.numel() == 0:
         return table.new_zeros(0, table.shape[1])
-    return F.embedding_bag(taps.index, table, taps.offsets, mode="sum", per_sample_weights=taps.weight)
+    if not table.requires_grad:
+        return F.embedding_bag(taps.index, table, taps.offsets, mode="sum", per_sample_weights=taps.weight)
+    return _TapSum.apply(table, taps.index, taps.weight, taps.offsets, taps.pixel)
 
 
 class FeatureTexture(nn.Module):
