@@ -97,26 +97,45 @@ def test_gradients_reach_level0():
     np.testing.assert_allclose(g.sum(axis=(0, 1)), [2.0, 2.0], atol=1e-5)  # weights sum to 1 per pixel
 
 
-def test_tap_gradient_matches_torch_autograd():
-    """The hand-written backward of the tap gather equals torch's own autograd through
-    F.embedding_bag (the reference), on odd and even texture sizes with blended levels."""
+def _reference_pyramid(level0: torch.Tensor, levels: int) -> torch.Tensor:
+    """Levels by torch's avg_pool2d (ceil_mode, count_include_pad=False), concatenated."""
+    T, _, C = level0.shape
+    rows, cur = [level0.reshape(T * T, C)], level0.permute(2, 0, 1)[None]
+    for _ in range(1, levels):
+        cur = torch.nn.functional.avg_pool2d(cur, 2, ceil_mode=True, count_include_pad=False)
+        rows.append(cur[0].permute(1, 2, 0).reshape(-1, C))
+    return torch.cat(rows, 0)
+
+
+def test_odd_sized_pyramid_matches_avg_pool2d():
+    """Odd sizes: the last row/column averages alone, as torch's avg_pool2d with ceil_mode does."""
+    T = 23
+    level0 = torch.from_numpy(np.random.default_rng(7).random((T, T, 2), dtype=np.float32))
+    np.testing.assert_allclose(build_pyramid(level0, 5).numpy(), _reference_pyramid(level0, 5).numpy(), atol=1e-6)
+
+
+def test_sampling_and_gradient_match_torch_autograd():
+    """The layer sampler (coarse levels built apart from level 0, hand-written backward) equals
+    torch autograd through an avg_pool2d pyramid and F.embedding_bag (the reference), values and
+    gradients, on even and odd texture sizes with blended levels."""
     rng = np.random.default_rng(6)
     for T in (16, 23):
         table = torch.from_numpy(rng.random((T * T, 3), dtype=np.float32))
         uv = torch.from_numpy(rng.uniform(0, 1, (500, 2)).astype(np.float32))
         rho = torch.from_numpy(rng.uniform(0.2, 6.0, 500).astype(np.float32) / T)
+        up = torch.from_numpy(rng.normal(size=(500, 3)).astype(np.float32))
         taps = mip_taps(uv, rho, T)
         assert taps.levels >= 3
-        up = torch.from_numpy(rng.normal(size=(500, 3)).astype(np.float32))
-        grads = []
-        for custom in (True, False):
+        outs, grads = [], []
+        for ours in (True, False):
             leaf = table.clone().requires_grad_()
-            pyr = build_pyramid(leaf.view(T, T, 3), taps.levels)
-            if custom:
-                out = sample_taps(pyr, taps)
+            if ours:
+                out = sample_layer(leaf, T, uv, rho)
             else:
-                out = torch.nn.functional.embedding_bag(taps.index, pyr, taps.offsets, mode="sum",
-                                                        per_sample_weights=taps.weight)
+                out = torch.nn.functional.embedding_bag(taps.index, _reference_pyramid(leaf.view(T, T, 3), taps.levels),
+                                                        taps.offsets, mode="sum", per_sample_weights=taps.weight)
             (out * up).sum().backward()
+            outs.append(out.detach().numpy())
             grads.append(leaf.grad.numpy())
+        np.testing.assert_allclose(outs[0], outs[1], rtol=1e-5, atol=1e-6)
         np.testing.assert_allclose(grads[0], grads[1], rtol=1e-5, atol=1e-6)
