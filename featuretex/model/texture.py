@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import reduce
 
 import numpy as np
 import torch
@@ -141,14 +142,19 @@ def upsample_add_(fine: torch.Tensor, coarse: torch.Tensor) -> None:
     fine.add_(pad[:s, :s])
 
 
+def coarse_levels(level0: torch.Tensor, levels: int) -> list[torch.Tensor]:
+    """(T, T, C) texture -> levels 1..levels-1 as flat (s*s, C) tables (2x2 box averages)."""
+    out, cur = [], level0
+    for _ in range(1, levels):
+        cur = downsample(cur)
+        out.append(cur.reshape(-1, level0.shape[2]))
+    return out
+
+
 def build_pyramid(level0: torch.Tensor, levels: int) -> torch.Tensor:
     """(T, T, C) texture -> (sum of level areas, C) table of levels 0..levels-1 (2x2 box averages)."""
     T, _, C = level0.shape
-    rows, cur = [level0.reshape(T * T, C)], level0
-    for _ in range(1, levels):
-        cur = downsample(cur)
-        rows.append(cur.reshape(-1, C))
-    return rows[0] if levels == 1 else torch.cat(rows, 0)
+    return torch.cat([level0.reshape(T * T, C)] + coarse_levels(level0, levels), 0)
 
 
 def sample_taps(table: torch.Tensor, taps: MipTaps) -> torch.Tensor:
@@ -183,38 +189,27 @@ class _MipGather(torch.autograd.Function):
 
     @staticmethod
     def forward(ctx, flat: torch.Tensor, size: int, taps: MipTaps) -> torch.Tensor:  # type: ignore[override]
-        rows0 = size * size
-        fine = taps.index < rows0
-        parts = [(taps.index, taps.weight, taps.pixel, taps.offsets) if taps.levels == 1 else _bags(fine, taps, 0)]
-        out = F.embedding_bag(parts[0][0], flat, parts[0][3], mode="sum", per_sample_weights=parts[0][1])
-        sizes = level_sizes(size, taps.levels)
-        if taps.levels > 1:
-            parts.append(_bags(~fine, taps, rows0))
+        tables = [flat]
+        if taps.levels == 1:
+            parts = [(taps.index, taps.weight, taps.pixel, taps.offsets)]
+        else:
+            fine = taps.index < size * size
+            parts = [_bags(fine, taps, 0), _bags(~fine, taps, size * size)]
             with torch.no_grad():
-                levels, cur = [], flat.detach().view(size, size, -1)
-                for _ in sizes[1:]:
-                    cur = downsample(cur)
-                    levels.append(cur.reshape(-1, flat.shape[1]))
-                coarse = torch.cat(levels, 0) if len(levels) > 1 else levels[0]
-            out = out + F.embedding_bag(parts[1][0], coarse, parts[1][3], mode="sum", per_sample_weights=parts[1][1])
-        ctx.parts, ctx.sizes, ctx.channels = parts, sizes, flat.shape[1]
+                tables.append(torch.cat(coarse_levels(flat.detach().view(size, size, -1), taps.levels), 0))
+        out = reduce(torch.add, (F.embedding_bag(index, table, offsets, mode="sum", per_sample_weights=weight)
+                                 for table, (index, weight, _, offsets) in zip(tables, parts)))
+        ctx.parts, ctx.sizes, ctx.rows = parts, level_sizes(size, taps.levels), [t.shape[0] for t in tables]
         return out
 
     @staticmethod
     @once_differentiable
     def backward(ctx, grad: torch.Tensor):  # type: ignore[override]
-        sizes, C = ctx.sizes, ctx.channels
-        grads = []
-        for index, weight, pixel, _ in ctx.parts:
-            rows = sizes[0] ** 2 if not grads else sum(s * s for s in sizes[1:])
-            g = grad.index_select(0, pixel).mul_(weight[:, None])
-            grads.append(grad.new_zeros(rows, C).index_add_(0, index, g))
-        if len(grads) > 1:
-            views = [grads[0].view(sizes[0], sizes[0], C)]
-            start = 0
-            for s in sizes[1:]:
-                views.append(grads[1][start:start + s * s].view(s, s, C))
-                start += s * s
+        sizes, C = ctx.sizes, grad.shape[1]
+        grads = [grad.new_zeros(rows, C).index_add_(0, index, grad.index_select(0, pixel).mul_(weight[:, None]))
+                 for rows, (index, weight, pixel, _) in zip(ctx.rows, ctx.parts)]
+        if len(grads) > 1:   # coarsest first: each level's gradient flows into the next finer one
+            views = [g.view(s, s, C) for g, s in zip([grads[0], *grads[1].split([s * s for s in sizes[1:]])], sizes)]
             for k in range(len(views) - 1, 0, -1):
                 upsample_add_(views[k - 1], views[k])
         return grads[0], None, None
