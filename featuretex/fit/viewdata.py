@@ -87,11 +87,11 @@ class ViewData:
         """Geometry of the window rows x cols (unit-step slices inside the image), as the model reads it:
         cover (h, w) bool, uv (N, 2) float32 (v up) and rho (N,) float32 uv units per pixel of the N
         covered pixels in row-major order, geo (12, h, w) float32 (view direction, normal in camera
-        then world axes; 0 off the mesh)."""
+        then world axes; 0 off the mesh) in channels-last memory (strides (1, 12 w, 12))."""
         r0, _, _ = rows.indices(self.shape[0])
         c0, _, _ = cols.indices(self.shape[1])
         cover, uv, rho, geo = crop_geometry(self.gbuf.window(rows, cols), (r0, c0), self.view, self.tables)
-        geo_t = torch.from_numpy(geo).permute(2, 0, 1).contiguous()   # channels first, as the decoder's convs
+        geo_t = torch.from_numpy(geo).permute(2, 0, 1)   # a channels-last view: the decoder's convs run in that layout
         return torch.from_numpy(cover), torch.from_numpy(uv), torch.from_numpy(rho), geo_t
 
     def photo_window(self, r0: int, r1: int, c0: int, c1: int) -> torch.Tensor:
