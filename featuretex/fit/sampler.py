@@ -90,7 +90,8 @@ def assemble(views: list[ViewData], crops: list[Crop], size: int, halo: int) -> 
         mask.append(m)
         ys, xs = torch.meshgrid(ar + c.y0, ar + c.x0, indexing="ij")
         px.append(torch.stack([xs, ys], -1))
-    pixels = PixelBatch(cover=torch.stack(cover), uv=torch.cat(uv), rho=torch.cat(rho), geo=torch.stack([g.permute(1, 2, 0) for g in geo]).permute(0, 3, 1, 2))   # channels-last memory, as each crop's
+    geo_hwc = torch.stack([g.permute(1, 2, 0) for g in geo])   # (B, h, w, 12): stacked without a layout change
+    pixels = PixelBatch(cover=torch.stack(cover), uv=torch.cat(uv), rho=torch.cat(rho), geo=geo_hwc.permute(0, 3, 1, 2))
     return CropBatch(pixels=pixels, view_idx=torch.tensor([c.view for c in crops]), loss_mask=torch.stack(mask),
                      px=torch.stack(px), views=[views[c.view] for c in crops])
 

@@ -54,7 +54,10 @@ class ScreenDecoder(nn.Module):
         self.halo = layers                                # pixels of context each side
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:
-        """(B, in, h, w) -> (B, 3, h, w)."""
+        """(B, in, h, w) -> (B, 3, h, w), computed on channels-last memory: torch's CPU convolutions are
+        ~2x faster there (forward + backward at (4, 23, 128, 128), 2 threads: 23 vs 48 ms). The fit's
+        inputs already come in that layout, so this is a no-op on its hot path."""
+        x = x.contiguous(memory_format=torch.channels_last)
         return self.bound * torch.tanh(self.out(self.body(x)))
 
     def flops_per_pixel(self) -> int:

@@ -21,7 +21,8 @@ class PixelBatch:
     cover: torch.Tensor     # (B, h, w) bool: a surface is seen at the pixel centre
     uv: torch.Tensor        # (N, 2) float32 uv (v up) of the covered pixels, row-major over cover
     rho: torch.Tensor       # (N,) float32 footprint, uv units per pixel
-    geo: torch.Tensor       # (B, GEO_CHANNELS, h, w) float32 view direction + normal (0 off the mesh)
+    geo: torch.Tensor       # (B, GEO_CHANNELS, h, w) float32 view direction + normal (0 off the mesh),
+                            # channels-last memory (as the crops make it; the decoder runs in that layout)
 
 
 @dataclass
