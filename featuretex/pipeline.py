@@ -22,6 +22,7 @@ from featuretex.config import FeaturetexConfig
 from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.outputs import write_outputs
 from featuretex.export.png import write_texture_png
+from featuretex.fit.checkpoint import result_knobs
 from featuretex.fit.loop import fit_scene
 from featuretex.fit.render import render_view
 from featuretex.raster.gbuffer import GBuffer
@@ -158,7 +159,7 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     base_tex, base_seen = stage_baseline(scene, gbuffers, texels, cfg, out, book, base_key)
 
     # the fit resumes from its checkpoint, or loads fit/model.pt when it already finished
-    fit_key = key_of(base_key, cfg.fit, cfg.seed)
+    fit_key = key_of(base_key, result_knobs(cfg.fit), cfg.seed)
     t0 = time.perf_counter()
     fit = fit_scene(scene, gbuffers, base_tex, base_seen, cfg.fit, out, seed=cfg.seed, quiet=cfg.quiet,
                     config_hash=fit_key)

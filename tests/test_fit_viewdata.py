@@ -137,3 +137,23 @@ def test_resident_bytes_per_fitted_view_are_below_12_per_pixel(small):
         per_px = held / (H * W)
         assert held == vd.resident_nbytes()
         assert 3.0 <= per_px < 12.0, per_px    # at least the photo's 3 bytes: the count sees it
+
+
+def test_cached_crop_geometry_is_bit_identical_to_the_streamed_one(small):
+    """The precomputed geometry is the same arithmetic over the object's box, so every crop (inside,
+    at the image border, reaching off the box) must equal the streamed one exactly."""
+    scene, gbuffers = small
+    tables = mesh_tables(scene.mesh)
+    for i, v in enumerate(scene.views):
+        streamed = prepare_view(scene, gbuffers[v.name], v, i, erode_px=2, tables=tables)
+        cached = prepare_view(scene, gbuffers[v.name], v, i, erode_px=2, tables=tables)
+        cached.cache_geometry()
+        assert cached.geometry is not None and streamed.geometry is None
+        r0, r1, c0, c1 = cached.bbox
+        assert cached.geometry.nbytes == cached.geometry_nbytes() == (r1 - r0) * (c1 - c0) * 61
+        assert cached.resident_nbytes() == streamed.resident_nbytes() + cached.geometry.nbytes
+        off_box = (slice(max(r0 - 20, 0), max(r0 - 20, 0) + 48), slice(max(c0 - 30, 0), max(c0 - 30, 0) + 64))
+        for rows, cols in (INSIDE, BORDER, off_box, (slice(0, H), slice(0, W))):
+            for a, b in zip(cached.crop(rows, cols), streamed.crop(rows, cols)):
+                assert a.shape == b.shape and a.stride() == b.stride() and a.dtype == b.dtype
+                assert torch.equal(a, b)

@@ -17,9 +17,17 @@ from featuretex.fit.config import FitConfig
 FORMAT = "featuretex-fit/1"
 
 
+RESULT_NEUTRAL = frozenset({"geometry_cache_gb"})   # fit knobs that change speed or memory, never values
+
+
+def result_knobs(cfg: FitConfig) -> dict[str, Any]:
+    """The fit knobs a result depends on (what keys a finished or resumable fit)."""
+    return {k: v for k, v in asdict(cfg).items() if k not in RESULT_NEUTRAL}
+
+
 def fit_hash(config_hash: str, cfg: FitConfig, seed: int) -> str:
-    """Key of a fit: the caller's scene/config hash plus every fit knob and the seed."""
-    text = json.dumps({"format": FORMAT, "outer": config_hash, "fit": asdict(cfg), "seed": seed}, sort_keys=True)
+    """Key of a fit: the caller's scene/config hash plus every fit knob that can change its result, and the seed."""
+    text = json.dumps({"format": FORMAT, "outer": config_hash, "fit": result_knobs(cfg), "seed": seed}, sort_keys=True)
     return hashlib.sha256(text.encode()).hexdigest()[:16]
 
 

@@ -157,6 +157,21 @@ def describe(model: SceneModel) -> str:
 
 # --- one step and evaluation ----------------------------------------------------------------------
 
+def cache_geometry(views: list[ViewData], budget_gb: float) -> int:
+    """Precompute crop geometry for as many views as `budget_gb` holds (every view is drawn
+    equally often, so any views will do); returns how many."""
+    left = budget_gb * 1e9
+    n = 0
+    for vd in views:
+        need = vd.geometry_nbytes()
+        if need > left:
+            break
+        vd.cache_geometry()
+        left -= need
+        n += 1
+    return n
+
+
 def train_step(model: SceneModel, opt: torch.optim.Optimizer, views: list[ViewData], sampler: CropSampler,
                cfg: FitConfig, step: int) -> tuple[float, int]:
     """One Adam step on a batch of crops. Returns (loss, object pixels in the loss)."""
@@ -338,6 +353,8 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     train_views = [prepare_view(scene, gbuffers[v.name], v, i, erode_px=cfg.edge_erode_px, tables=tables)
                    for i, v in enumerate(fitted)]
     eval_views = [prepare_view(scene, gbuffers[v.name], v, -1, erode_px=0, tables=tables) for v in held]
+    cached = cache_geometry(train_views, cfg.geometry_cache_gb)
+    log.info("fit: crop geometry precomputed for %d of %d views", cached, len(train_views))
     sizes = [(v.camera.width, v.camera.height) for v in fitted]
     model = build_model(cfg, fill_unmeasured(init_texture_lin, init_valid), names, sizes, reference, rng)
     log.info(describe(model))
