@@ -115,17 +115,21 @@ def test_odd_sized_pyramid_matches_avg_pool2d():
 
 
 def test_sampling_and_gradient_match_torch_autograd():
-    """The layer sampler (coarse levels built apart from level 0, hand-written backward) equals
-    torch autograd through an avg_pool2d pyramid and F.embedding_bag (the reference), values and
-    gradients, on even and odd texture sizes with blended levels."""
+    """The layer sampler (compiled per-pixel kernels, coarse levels built apart from level 0,
+    hand-written backward) equals torch autograd through an avg_pool2d pyramid and
+    F.embedding_bag (the reference), values and gradients: even and odd texture sizes, blended
+    levels, edge-clamped lookups, magnified-only batches (level 0 alone), footprints beyond the
+    coarsest level, and no footprint at all (plain bilinear)."""
     rng = np.random.default_rng(6)
-    for T in (16, 23):
+    cases = [(16, (0.2, 6.0), (0.0, 1.0)), (23, (0.2, 6.0), (-0.05, 1.05)), (23, (0.01, 0.9), (0.0, 1.0)),
+             (16, (8.0, 40.0), (0.0, 1.0)), (16, None, (-0.05, 1.05))]
+    for T, rho_range, uv_range in cases:
         table = torch.from_numpy(rng.random((T * T, 3), dtype=np.float32))
-        uv = torch.from_numpy(rng.uniform(0, 1, (500, 2)).astype(np.float32))
-        rho = torch.from_numpy(rng.uniform(0.2, 6.0, 500).astype(np.float32) / T)
+        uv = torch.from_numpy(rng.uniform(*uv_range, (500, 2)).astype(np.float32))
+        rho = None if rho_range is None else torch.from_numpy(rng.uniform(*rho_range, 500).astype(np.float32) / T)
         up = torch.from_numpy(rng.normal(size=(500, 3)).astype(np.float32))
         taps = mip_taps(uv, rho, T)
-        assert taps.levels >= 3
+        assert taps.levels >= (3 if rho_range == (0.2, 6.0) else 1)
         outs, grads = [], []
         for ours in (True, False):
             leaf = table.clone().requires_grad_()

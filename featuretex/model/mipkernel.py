@@ -1,0 +1,111 @@
+"""Compiled (numba) kernels of trilinear mip sampling: one pass per pixel instead of tap tables.
+
+`mip_forward` computes, for each pixel, the same taps as texture.mip_taps (level of detail ->
+two levels, four bilinear texels each, with the same float64 coordinates and float32 weights)
+and blends the texels in place; it also records the taps, (N, 8) rows and weights (weight 0 for
+an unused slot), for `mip_backward`, which scatters the incoming gradient back along them.
+
+Why compiled: in torch the taps become a dozen (N, 8) intermediate tensors and a gather /
+index_add per part, all memory-bound; on the demo batch (57k pixels, 1024^2 x 3 colour layer)
+forward + backward took 24 ms that way and ~8 ms here (2 threads; measured side by side). The
+backward runs on one thread in pixel order, so gradients are bit-for-bit deterministic (and
+equal to the torch path's index_add_, which also adds in tap order).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+from numba import njit, prange
+
+
+def match_torch_threads(torch_threads: int) -> None:
+    """Run the parallel kernel on as many threads as torch uses (the fit fixes that count per run)."""
+    numba.set_num_threads(max(1, min(int(torch_threads), numba.config.NUMBA_NUM_THREADS)))
+
+
+@njit(parallel=True, cache=True, boundscheck=False)
+def mip_forward(level0: np.ndarray, coarse: np.ndarray, uv: np.ndarray, lam: np.ndarray, sizes: np.ndarray,
+                bases: np.ndarray, top: int, out: np.ndarray, idx: np.ndarray, wts: np.ndarray) -> None:  # pragma: no cover - compiled
+    """out (N, K) = trilinear samples; idx (N, 8) int64 pyramid rows, wts (N, 8) float32 their weights.
+
+    level0 (T*T, K) float32 and coarse (rows, K) float32: the pyramid table split at row T*T
+    (coarse holds levels 1.. as built by texture.coarse_levels); uv (N, 2) float32 (v up);
+    lam (N,) float32 level of detail already clamped to [0, top]; sizes, bases (levels + 1,)
+    int64 edge length and first row of each level in the pyramid table.
+    """
+    N, K = out.shape
+    TT = level0.shape[0]
+    one = np.float32(1.0)
+    zero = np.float32(0.0)
+    for n in prange(N):
+        lv = lam[n]
+        l0 = int(math.floor(lv))
+        if l0 > top:
+            l0 = top
+        frac = np.float32(lv - np.float32(l0))
+        frac = min(max(frac, zero), one)
+        if l0 >= top:
+            frac = zero
+        u = np.float64(uv[n, 0])
+        v = np.float64(uv[n, 1])
+        for k in range(K):
+            out[n, k] = 0.0
+        for j in range(2):
+            if j == 1 and frac == zero:
+                for t in range(4, 8):
+                    idx[n, t] = 0
+                    wts[n, t] = zero
+                break
+            lev = l0 + j
+            s = sizes[lev]
+            col = u * np.float64(s) - 0.5
+            row = (1.0 - v) * np.float64(s) - 0.5
+            fcol = math.floor(col)
+            frow = math.floor(row)
+            fc = np.float32(col - fcol)
+            fr = np.float32(row - frow)
+            c0 = int(fcol)
+            r0 = int(frow)
+            c1 = min(max(c0 + 1, 0), s - 1)
+            r1 = min(max(r0 + 1, 0), s - 1)
+            c0 = min(max(c0, 0), s - 1)
+            r0 = min(max(r0, 0), s - 1)
+            lw = (one - frac) if j == 0 else frac
+            b = bases[lev]
+            rows = (b + r0 * s + c0, b + r0 * s + c1, b + r1 * s + c0, b + r1 * s + c1)
+            ws = (((one - fc) * (one - fr)) * lw, (fc * (one - fr)) * lw,
+                  ((one - fc) * fr) * lw, (fc * fr) * lw)
+            for t in range(4):
+                rr = rows[t]
+                w = ws[t]
+                idx[n, 4 * j + t] = rr
+                wts[n, 4 * j + t] = w
+                if rr < TT:
+                    for k in range(K):
+                        out[n, k] += w * level0[rr, k]
+                else:
+                    for k in range(K):
+                        out[n, k] += w * coarse[rr - TT, k]
+
+
+@njit(cache=True, boundscheck=False)
+def mip_backward(grad: np.ndarray, idx: np.ndarray, wts: np.ndarray, g0: np.ndarray,
+                 gcoarse: np.ndarray) -> None:  # pragma: no cover - compiled
+    """g0 (T*T, K) and gcoarse (rows, K) += the adjoint of mip_forward applied to grad (N, K)."""
+    N, K = grad.shape
+    TT = g0.shape[0]
+    for n in range(N):
+        for t in range(8):
+            w = wts[n, t]
+            if w == 0.0:
+                continue
+            rr = idx[n, t]
+            if rr < TT:
+                for k in range(K):
+                    g0[rr, k] += w * grad[n, k]
+            else:
+                for k in range(K):
+                    gcoarse[rr - TT, k] += w * grad[n, k]
