@@ -109,3 +109,35 @@ def mip_backward(grad: np.ndarray, idx: np.ndarray, wts: np.ndarray, g0: np.ndar
             else:
                 for k in range(K):
                     gcoarse[rr - TT, k] += w * grad[n, k]
+
+
+@njit(parallel=True, cache=True, boundscheck=False)
+def downsample(x: np.ndarray, out: np.ndarray) -> None:  # pragma: no cover - compiled
+    """out (ceil(s/2), ceil(s/2), K) = 2x2 box means of x (s, s, K); for odd s the last row / column
+    is replicated first (as texture.downsample; the same summation order, so the same floats)."""
+    s = x.shape[0]
+    S, K = out.shape[0], out.shape[2]
+    for i in prange(S):
+        r0 = 2 * i
+        r1 = min(r0 + 1, s - 1)
+        for j in range(S):
+            c0 = 2 * j
+            c1 = min(c0 + 1, s - 1)
+            for k in range(K):
+                out[i, j, k] = (((x[r0, c0, k] + x[r1, c0, k]) + x[r0, c1, k]) + x[r1, c1, k]) * np.float32(0.25)
+
+
+@njit(parallel=True, cache=True, boundscheck=False)
+def upsample_add(fine: np.ndarray, coarse: np.ndarray) -> None:  # pragma: no cover - compiled
+    """fine (s, s, K) += the adjoint of `downsample` applied to coarse: a quarter of each coarse
+    value to each of its 2x2 texels; for odd s the last row / column also takes its replica's."""
+    s, K = fine.shape[0], fine.shape[2]
+    odd = s % 2 == 1
+    for r in prange(s):
+        mr = np.float32(2.0) if (odd and r == s - 1) else np.float32(1.0)
+        i = r // 2
+        for c in range(s):
+            m = mr * (np.float32(2.0) if (odd and c == s - 1) else np.float32(1.0))
+            j = c // 2
+            for k in range(K):
+                fine[r, c, k] += m * (coarse[i, j, k] * np.float32(0.25))

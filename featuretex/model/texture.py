@@ -112,50 +112,30 @@ def mip_taps(uv: torch.Tensor, rho: torch.Tensor | None, size: int, max_level: i
     return MipTaps(index=index, weight=weight, offsets=offsets, levels=needed)
 
 
-def downsample(x: torch.Tensor) -> torch.Tensor:
-    """(s, s, C) -> (ceil(s/2), ceil(s/2), C) 2x2 box means; an odd last row/column is averaged
-    alone (as avg_pool2d with ceil_mode=True, count_include_pad=False). Four strided adds on the
-    channels-last layout: measured 1.3 ms vs 6.1 ms for avg_pool2d at 1024^2 x 3."""
-    if x.shape[0] % 2:
-        x = torch.cat([x, x[-1:]], 0)
-    if x.shape[1] % 2:
-        x = torch.cat([x, x[:, -1:]], 1)
-    return (x[0::2, 0::2] + x[1::2, 0::2]).add_(x[0::2, 1::2]).add_(x[1::2, 1::2]).mul_(0.25)
-
-
 def upsample_add_(fine: torch.Tensor, coarse: torch.Tensor) -> None:
-    """fine (s, s, C) += the adjoint of `downsample` applied to coarse (ceil(s/2), ceil(s/2), C):
+    """fine (s, s, C) += the adjoint of the 2x2 mean (mipkernel.downsample) applied to coarse (ceil(s/2), ceil(s/2), C):
     each coarse gradient goes a quarter to each of its 2x2 texels. For odd s the last row/column
-    was replicated before averaging, so it also receives the replica's quarters."""
-    s = fine.shape[0]
-    q = coarse * 0.25
-    if s % 2 == 0:
-        for a in (0, 1):
-            for b in (0, 1):
-                fine[a::2, b::2].add_(q)
-        return
-    pad = fine.new_zeros(s + 1, s + 1, fine.shape[2])
-    for a in (0, 1):
-        for b in (0, 1):
-            pad[a::2, b::2].add_(q)
-    pad[s - 1].add_(pad[s])
-    pad[:, s - 1].add_(pad[:, s])
-    fine.add_(pad[:s, :s])
+    was replicated before averaging, so it also receives the replica's quarters. Both contiguous."""
+    mipkernel.upsample_add(fine.numpy(), coarse.contiguous().numpy())
 
 
-def coarse_levels(level0: torch.Tensor, levels: int) -> list[torch.Tensor]:
-    """(T, T, C) texture -> levels 1..levels-1 as flat (s*s, C) tables (2x2 box averages)."""
-    out, cur = [], level0
-    for _ in range(1, levels):
-        cur = downsample(cur)
-        out.append(cur.reshape(-1, level0.shape[2]))
-    return out
+def coarse_table(level0: torch.Tensor, levels: int) -> torch.Tensor:
+    """(T, T, C) texture -> (rows, C) table of levels 1..levels-1 concatenated (2x2 box averages),
+    without gradient; 0 rows when levels == 1."""
+    C = level0.shape[2]
+    sizes = level_sizes(level0.shape[0], levels)[1:]
+    table = level0.new_empty(sum(s * s for s in sizes), C)
+    cur = level0.detach().contiguous()
+    for part, s in zip(table.split([s * s for s in sizes]), sizes):
+        mipkernel.downsample(cur.numpy(), part.view(s, s, C).numpy())
+        cur = part.view(s, s, C)
+    return table
 
 
 def build_pyramid(level0: torch.Tensor, levels: int) -> torch.Tensor:
     """(T, T, C) texture -> (sum of level areas, C) table of levels 0..levels-1 (2x2 box averages)."""
     T, _, C = level0.shape
-    return torch.cat([level0.reshape(T * T, C)] + coarse_levels(level0, levels), 0)
+    return torch.cat([level0.reshape(T * T, C), coarse_table(level0, levels)], 0)
 
 
 def sample_taps(table: torch.Tensor, taps: MipTaps) -> torch.Tensor:
@@ -182,9 +162,9 @@ class _MipSample(torch.autograd.Function):
         K = flat.shape[1]
         sizes = level_sizes(size, levels + 1)
         bases = np.concatenate([[0], np.cumsum(np.square(sizes))]).astype(np.int64)
-        with torch.no_grad():
-            coarse = (torch.cat(coarse_levels(flat.detach().view(size, size, K), levels), 0) if levels > 1
-                      else flat.new_zeros(1, K))
+        coarse = coarse_table(flat.detach().view(size, size, K), levels)
+        if coarse.shape[0] == 0:
+            coarse = flat.new_zeros(1, K)   # never read: every tap is in level 0
         n = uv.shape[0]
         out = flat.new_empty(n, K)
         idx = torch.empty(n, 8, dtype=torch.int64)
