@@ -8,7 +8,10 @@ time_to_quality_s = fit wall seconds (set-up included, scoring excluded) until t
 held-out tolerant PSNR is within 0.5 dB of that reference. Also: trained object pixels per
 second; achieved FLOP/s of the fit (dense arithmetic, see featuretex.fit.loop.train_flops) as a
 fraction of a dense float32 matmul's FLOP/s measured in this run with the same threads; peak
-RSS. --ablations adds one default-budget run per switched-off component.
+RSS. Where the screen decoder runs its convolutions in bfloat16 (fit.precision auto on a CPU with
+AMX), the fraction of a bfloat16 matmul's FLOP/s is printed too, and a short float32 run of the
+same steps gives the float32 step time and fraction side by side. --ablations adds one
+default-budget run per switched-off component.
 Last printed line: a JSON object.
 """
 
@@ -38,6 +41,7 @@ from featuretex.bake.texel_size import auto_texture_size  # noqa: E402
 from featuretex.demo import ensure_demo_scene  # noqa: E402
 from featuretex.fit import FitConfig, render_view  # noqa: E402
 from featuretex.fit.loop import run_fit, train_flops  # noqa: E402
+from featuretex.model.decoders import resolve_precision  # noqa: E402
 from featuretex.raster.stage import build_gbuffers  # noqa: E402
 from featuretex.raster.uvspace import rasterise_uv  # noqa: E402
 from featuretex.render import render_texture  # noqa: E402
@@ -54,10 +58,10 @@ ABLATIONS = {  # name -> FitConfig overrides that switch one component off
 }
 
 
-def matmul_flops(threads: int, n: int = 2048, reps: int = 8) -> float:
-    """Dense float32 matmul FLOP/s (2 n^3 per product), best of `reps`, at `threads` threads."""
+def matmul_flops(threads: int, n: int = 2048, reps: int = 8, dtype: torch.dtype = torch.float32) -> float:
+    """Dense matmul FLOP/s (2 n^3 per product) in `dtype`, best of `reps`, at `threads` threads."""
     torch.set_num_threads(threads)
-    a, b = torch.randn(n, n), torch.randn(n, n)
+    a, b = torch.randn(n, n, dtype=dtype), torch.randn(n, n, dtype=dtype)
     a @ b
     best = float("inf")
     for _ in range(reps):
@@ -152,6 +156,17 @@ def main() -> None:
     st = res.stats
     flops = train_flops(res.model, st["pixels_rendered"], st["pixels_fitted"])
     achieved = flops / res.timings["train_s"]
+    precision = resolve_precision(cfg.precision)
+    mixed = {}
+    if precision != "float32":   # the same steps with float32 convolutions, and the bfloat16 limit
+        short = min(cfg.steps, 100)
+        r32 = fit(replace(cfg, steps=short, eval_every=10 ** 9, precision="float32"), "float32", None)
+        a32 = train_flops(r32.model, r32.stats["pixels_rendered"], r32.stats["pixels_fitted"]) / r32.timings["train_s"]
+        mm16 = matmul_flops(threads, dtype=torch.bfloat16)
+        mixed = {"flops_fraction_of_bfloat16_matmul": round(achieved / mm16, 3),
+                 "matmul_bfloat16_gflops": round(mm16 / 1e9, 2),
+                 "float32_step_s": round(r32.timings["train_s"] / max(1, r32.stats["steps"]), 3),
+                 "float32_flops_fraction": round(a32 / mm, 3)}
     out = {
         "time_to_quality_s": round(ttq, 1) if ttq is not None else None,
         "pixels_per_s": round(st["pixels_fitted"] / res.timings["train_s"]),
@@ -159,6 +174,8 @@ def main() -> None:
         "peak_rss_gb": round(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2 ** 20, 2),
         "achieved_gflops": round(achieved / 1e9, 2),
         "matmul_gflops": round(mm / 1e9, 2),
+        "precision": precision,
+        **mixed,
         "threads": threads,
         "steps": cfg.steps,
         "step_s": round(res.timings["train_s"] / max(1, st["steps"]), 3),

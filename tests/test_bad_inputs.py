@@ -652,6 +652,14 @@ def test_check_output_dir_reports_a_read_only_folder(tmp_path):
 
 
 
+def test_unknown_fit_precision_gives_one_line(good_scene, tmp_path):
+    p = run_cli(good_scene, tmp_path / "run", tmp_path, *QUICK, "fit.precision=half")
+    assert p.returncode == 2, p.stderr
+    lines = [ln for ln in p.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1 and "fit.precision" in lines[0] and "half" in lines[0], p.stderr
+    assert "Traceback" not in p.stderr + p.stdout
+
+
 def test_read_only_output_folder_gives_one_line(good_scene, tmp_path):
     with tmpfs(tmp_path / "ro", "ro,size=64k") as ro:
         p = run_cli(good_scene, ro / "run", tmp_path)

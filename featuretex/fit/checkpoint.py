@@ -13,6 +13,7 @@ import torch
 from featuretex.atomic import atomic_path
 from featuretex.errors import input_error
 from featuretex.fit.config import FitConfig
+from featuretex.model.decoders import resolve_precision
 
 FORMAT = "featuretex-fit/1"
 
@@ -21,8 +22,11 @@ RESULT_NEUTRAL = frozenset({"geometry_cache_gb"})   # fit knobs that change spee
 
 
 def result_knobs(cfg: FitConfig) -> dict[str, Any]:
-    """The fit knobs a result depends on (what keys a finished or resumable fit)."""
-    return {k: v for k, v in asdict(cfg).items() if k not in RESULT_NEUTRAL}
+    """The fit knobs a result depends on (what keys a finished or resumable fit); precision "auto"
+    as what it resolves to on this machine."""
+    knobs = {k: v for k, v in asdict(cfg).items() if k not in RESULT_NEUTRAL}
+    knobs["precision"] = resolve_precision(cfg.precision)
+    return knobs
 
 
 def fit_hash(config_hash: str, cfg: FitConfig, seed: int) -> str:

@@ -29,6 +29,7 @@ class FitConfig:
     hidden: int = 24                 # screen-space decoder width
     layers: int = 2                  # 3x3 conv layers of the screen-space decoder
     residual_bound: float = 0.25     # |screen-space residual| < this, linear light
+    precision: str = "auto"          # screen decoder convolutions: float32, bfloat16, auto (bfloat16 where the CPU has it in hardware)
     align_cell_px: float = 40.0      # alignment grid spacing, pixels (480 x 640 -> 13 x 17 nodes)
     # sampling
     crop: int = 128                  # square crop edge, pixels

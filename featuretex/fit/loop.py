@@ -32,7 +32,7 @@ from featuretex.fit.render import render_viewdata
 from featuretex.fit.sampler import CropSampler, assemble, warped_targets
 from featuretex.fit.viewdata import ViewData, mesh_tables, prepare_view
 from featuretex.model.corrections import ViewCorrections, grid_shape
-from featuretex.model.decoders import parameter_count
+from featuretex.model.decoders import parameter_count, resolve_precision
 from featuretex.model.scene_model import SceneModel
 from featuretex.progress import Progress
 from featuretex.raster.gbuffer import GBuffer
@@ -84,7 +84,8 @@ def build_model(cfg: FitConfig, init_texture_lin: np.ndarray, names: list[str], 
     W = max(s[0] for s in sizes)
     corr = ViewCorrections(names, sizes, grid_shape(H, W, cfg.align_cell_px), reference)
     kwargs = {"hidden": cfg.hidden, "layers": cfg.layers, "bound": cfg.residual_bound}
-    model = SceneModel(size, cfg.channels, cfg.decoder, kwargs, corr, cfg.latent_scale, cfg.mip)
+    model = SceneModel(size, cfg.channels, cfg.decoder, kwargs, corr, cfg.latent_scale, cfg.mip,
+                       resolve_precision(cfg.precision))
     model.texture.initialise(init_texture_lin, rng)
     return model
 
@@ -152,7 +153,7 @@ def describe(model: SceneModel) -> str:
             f"x{tex.channels} ({tex.colour.numel() + tex.latent.numel():,} params), "
             f"decoder '{model.decoder_name}': head {parameter_count(model.decoder.head)} + screen {screen:,} "
             f"params, corrections {corr:,} params; per-pixel forward FLOPs: sampling <= {fl['sampling']}, "
-            f"head {fl['head']}, screen {fl.get('screen', 0):,}")
+            f"head {fl['head']}, screen {fl.get('screen', 0):,} ({model.precision} convolutions)")
 
 
 # --- one step and evaluation ----------------------------------------------------------------------

@@ -37,7 +37,8 @@ class Render:
 
 class SceneModel(nn.Module):
     def __init__(self, size: int, channels: int, decoder: str, decoder_kwargs: dict[str, Any],
-                 corrections: ViewCorrections | None = None, latent_scale: int = 4, mip: bool = True):
+                 corrections: ViewCorrections | None = None, latent_scale: int = 4, mip: bool = True,
+                 precision: str = "float32"):
         super().__init__()
         self.mip = bool(mip)  # False: plain bilinear lookups of level 0 (for measuring what mipmapping gains)
         self.texture = FeatureTexture(size, channels, latent_scale)
@@ -47,6 +48,9 @@ class SceneModel(nn.Module):
         self.decoder_name = decoder
         self.decoder_kwargs = dict(decoder_kwargs)
         self.corrections = corrections
+        self.precision = precision        # "float32" or "bfloat16": the screen decoder's convolutions
+        if self.decoder.screen is not None:
+            self.decoder.screen.bfloat16 = precision == "bfloat16"
 
     def forward(self, batch: PixelBatch) -> Render:
         B, h, w = batch.cover.shape
@@ -71,6 +75,7 @@ class SceneModel(nn.Module):
         """Plain-typed description (loadable with torch.load(weights_only=True))."""
         c = self.corrections
         return {"size": self.texture.size, "channels": self.texture.channels, "latent_scale": self.latent_scale, "mip": self.mip,
+                "precision": self.precision,
                 "decoder": self.decoder_name,
                 "decoder_kwargs": self.decoder_kwargs,
                 "views": list(c.names) if c is not None else [],
@@ -85,7 +90,7 @@ class SceneModel(nn.Module):
             corr = ViewCorrections(meta["views"], [tuple(s) for s in meta["image_sizes"]],
                                    tuple(meta["grid_hw"]), meta["reference"])
         return cls(meta["size"], meta["channels"], meta["decoder"], meta["decoder_kwargs"], corr,
-                   meta.get("latent_scale", 4), meta.get("mip", True))
+                   meta.get("latent_scale", 4), meta.get("mip", True), meta.get("precision", "float32"))
 
     def view_index(self, name: str) -> int | None:
         if self.corrections is None or name not in self.corrections.names:
