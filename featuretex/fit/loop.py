@@ -26,7 +26,8 @@ from featuretex.atomic import atomic_path, write_json
 from featuretex.errors import input_error
 from featuretex.fit import checkpoint as ckpt
 from featuretex.fit.config import FitConfig
-from featuretex.fit.losses import masked_l1, masked_ssim, psnr, srgb_encode_leaky
+from featuretex.fit.losses import masked_ssim, psnr
+from featuretex.fit.photoloss import photometric_loss
 from featuretex.fit.rebake import rebake_colour_layer
 from featuretex.fit.render import render_viewdata
 from featuretex.fit.sampler import CropSampler, assemble, warped_targets
@@ -185,10 +186,8 @@ def train_step(model: SceneModel, opt: torch.optim.Optimizer, views: list[ViewDa
     render = model(batch.pixels)
     pred = corr.apply_colour(render.total, batch.view_idx)
     target = warped_targets(batch, corr, align=True)
-    p, t = srgb_encode_leaky(pred), srgb_encode_leaky(target)
-    loss = cfg.w_l1 * masked_l1(p, t, batch.loss_mask)
-    if cfg.w_ssim > 0:
-        loss = loss + cfg.w_ssim * (1.0 - masked_ssim(p, t, batch.loss_mask))
+    l1, ssim = photometric_loss(pred, target, batch.loss_mask)   # on sRGB-encoded values
+    loss = cfg.w_l1 * l1 + cfg.w_ssim * (1.0 - ssim)
     reg = corr.regulariser()
     loss = loss + cfg.w_colour * reg["colour"] + cfg.w_align_mag * reg["align_mag"] \
         + cfg.w_align_smooth * reg["align_smooth"]
