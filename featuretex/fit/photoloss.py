@@ -35,16 +35,22 @@ def _encode(x: np.float32) -> tuple[np.float32, np.float32]:  # pragma: no cover
     return np.float32(1.0 + _A) * p - np.float32(_A), np.float32((1.0 + _A) / 2.4) * p / x
 
 
+@njit(cache=True, inline="always")
+def _sizes(img: np.ndarray, k: np.ndarray) -> tuple[int, int, int, int, int, int, int, int]:  # pragma: no cover
+    """B, C, h, w of the images; taps n, radius r and the valid map's hv, wv of the window k."""
+    B, C, h, w = img.shape
+    n = k.shape[0]
+    r = (n - 1) // 2
+    return B, C, h, w, n, r, h - 2 * r, w - 2 * r
+
+
 @njit(parallel=True, cache=True, boundscheck=False)
 def _forward(pred, targ, mask, k, c1, c2, pm, tm, dpm, dtm, stats, l1_part, ssim_part):  # pragma: no cover
     """Per plane (crop b, channel c) of the linear images pred, targ (B, C, h, w) float32: the
     masked encoded images pm, tm and the encoding's derivatives times the mask dpm, dtm (B, C, h, w);
     blurred moments stats (B, C, 5, h - 2r, w - 2r) = mx, my, mxx, myy, mxy; sums of |pm - tm| and
     of the SSIM map over the cropped mask, (B * C,) float64."""
-    B, C, h, w = pm.shape
-    n = k.shape[0]
-    r = (n - 1) // 2
-    hv, wv = h - 2 * r, w - 2 * r
+    B, C, h, w, n, r, hv, wv = _sizes(pm, k)
     for q in prange(B * C):
         b, c = q // C, q % C
         P, T = pm[b, c], tm[b, c]
@@ -91,10 +97,7 @@ def _forward(pred, targ, mask, k, c1, c2, pm, tm, dpm, dtm, stats, l1_part, ssim
 def _backward(mask, k, c1, c2, pm, tm, dpm, dtm, stats, a_l1, a_ssim, gpred, gtarg):  # pragma: no cover
     """gpred, gtarg (B, C, h, w) = d(a_l1 * sum|pm - tm| + a_ssim * sum S) / d(pred, targ), where
     dpm, dtm are the encoding's derivatives (times the mask)."""
-    B, C, h, w = pm.shape
-    n = k.shape[0]
-    r = (n - 1) // 2
-    hv, wv = h - 2 * r, w - 2 * r
+    B, C, h, w, n, r, hv, wv = _sizes(pm, k)
     for q in prange(B * C):
         b, c = q // C, q % C
         st = stats[b, c]
