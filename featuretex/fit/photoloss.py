@@ -17,6 +17,7 @@ import numpy as np
 import torch
 from numba import njit, prange
 
+from featuretex.compiled import match_torch_threads
 from featuretex.fit.losses import SSIM_K1, SSIM_K2, gaussian_kernel
 from featuretex.scene.colour import _A, _THRESH_LIN
 
@@ -151,6 +152,7 @@ class _PhotoLoss(torch.autograd.Function):
         c1, c2 = np.float32(SSIM_K1 ** 2), np.float32(SSIM_K2 ** 2)
         stats = torch.empty(B, C, 5, h - 2 * r, w - 2 * r)
         l1p, ssp = np.empty(B * C), np.empty(B * C)
+        match_torch_threads(torch.get_num_threads())
         _forward(pred.numpy(), targ.numpy(), m, k, c1, c2, pm.numpy(), tm.numpy(), dpm.numpy(), dtm.numpy(),
                  stats.numpy(), l1p, ssp)
         n_l1 = max(float(m.sum()) * C, 1.0)

@@ -16,14 +16,10 @@ from __future__ import annotations
 
 import math
 
-import numba
 import numpy as np
 from numba import njit, prange
 
-
-def match_torch_threads(torch_threads: int) -> None:
-    """Run the parallel kernel on as many threads as torch uses (the fit fixes that count per run)."""
-    numba.set_num_threads(max(1, min(int(torch_threads), numba.config.NUMBA_NUM_THREADS)))
+from featuretex import compiled  # noqa: F401  (threading layer)
 
 
 @njit(parallel=True, cache=True, boundscheck=False)

@@ -26,6 +26,7 @@ import torch.nn.functional as F
 from torch import nn
 from torch.autograd.function import once_differentiable
 
+from featuretex.compiled import match_torch_threads
 from featuretex.model import mipkernel
 
 
@@ -169,7 +170,7 @@ class _MipSample(torch.autograd.Function):
         out = flat.new_empty(n, K)
         idx = torch.empty(n, 8, dtype=torch.int64)
         wts = torch.empty(n, 8)
-        mipkernel.match_torch_threads(torch.get_num_threads())
+        match_torch_threads(torch.get_num_threads())
         mipkernel.mip_forward(flat.detach().numpy(), coarse.numpy(), uv.contiguous().numpy(),
                               lam.contiguous().numpy(), np.asarray(sizes, np.int64), bases, int(top),
                               out.numpy(), idx.numpy(), wts.numpy())
