@@ -160,8 +160,8 @@ def describe(model: SceneModel) -> str:
 # --- one step and evaluation ----------------------------------------------------------------------
 
 def cache_geometry(views: list[ViewData], budget_gb: float) -> int:
-    """Precompute crop geometry for as many views as `budget_gb` holds (every view is drawn
-    equally often, so any views will do); returns how many."""
+    """Precompute crop geometry for as many views as `budget_gb` holds, in the given order (fitted
+    views are drawn equally often, so any of them will do); returns how many."""
     left = budget_gb * 1e9
     n = 0
     for vd in views:
@@ -353,8 +353,9 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     train_views = [prepare_view(scene, gbuffers[v.name], v, i, erode_px=cfg.edge_erode_px, tables=tables)
                    for i, v in enumerate(fitted)]
     eval_views = [prepare_view(scene, gbuffers[v.name], v, -1, erode_px=0, tables=tables) for v in held]
-    cached = cache_geometry(train_views, cfg.geometry_cache_gb)
-    log.info("fit: crop geometry precomputed for %d of %d views", cached, len(train_views))
+    everyone = train_views + eval_views   # held-out views are rendered at every evaluation
+    cached = cache_geometry(everyone, cfg.geometry_cache_gb)
+    log.info("fit: crop geometry precomputed for %d of %d views", cached, len(everyone))
     sizes = [(v.camera.width, v.camera.height) for v in fitted]
     model = build_model(cfg, fill_unmeasured(init_texture_lin, init_valid), names, sizes, reference, rng)
     log.info(describe(model))
