@@ -19,7 +19,7 @@ class FitConfig:
     lr_decoder: float = 2e-3         # head and screen-space decoder
     lr_colour: float = 2e-3          # per-view colour affine
     lr_align: float = 0.05           # per-view alignment fields (pixels per step)
-    rebake_at: int = 0               # re-average the colour layer from the registered photos after this step (0 = never)
+    rebake_at: int = 500             # re-average the colour layer from the registered photos after this step (0 = never; scale with steps)
     # model
     channels: int = 8                # latent feature channels (read by the screen-space decoder)
     latent_scale: int = 4            # latent layer has texture_size / latent_scale texels per side

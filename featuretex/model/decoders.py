@@ -112,6 +112,10 @@ class TexelDecoder(nn.Module):
         (B, 3, h, w) linear and geo (B, GEO_CHANNELS, h, w); None when the decoder has no screen-space part."""
         return None
 
+    def residual_packed(self, img: torch.Tensor, channels: int, geo: torch.Tensor) -> torch.Tensor | None:
+        """residual() of img (B, channels + 3, h, w) = the latent features, then the colour."""
+        return self.residual(img[:, :channels], img[:, channels:], geo)
+
     def flops_per_pixel(self) -> dict[str, int]:
         out = {"head": self.head.flops_per_sample()}
         if self.screen is not None:
@@ -131,6 +135,10 @@ class TexelScreenDecoder(TexelDecoder):
     def residual(self, feat: torch.Tensor, colour: torch.Tensor, geo: torch.Tensor) -> torch.Tensor | None:
         assert self.screen is not None
         return self.screen(torch.cat([feat, colour, geo], dim=1))
+
+    def residual_packed(self, img: torch.Tensor, channels: int, geo: torch.Tensor) -> torch.Tensor | None:
+        assert self.screen is not None
+        return self.screen(torch.cat([img, geo], dim=1))   # the same input as residual(), one concatenation
 
 
 def parameter_count(module: nn.Module) -> int:

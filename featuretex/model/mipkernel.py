@@ -3,13 +3,13 @@
 `mip_forward` computes, for each pixel, the same taps as texture.mip_taps (level of detail ->
 two levels, four bilinear texels each, with the same float64 coordinates and float32 weights)
 and blends the texels in place; it also records the taps, (N, 8) rows and weights (weight 0 for
-an unused slot), for `mip_backward`, which scatters the incoming gradient back along them.
+an unused slot), for `mip_scatter`, which scatters the incoming gradient back along them.
 
 Why compiled: in torch the taps become a dozen (N, 8) intermediate tensors and a gather /
 index_add per part, all memory-bound; on the demo batch (57k pixels, 1024^2 x 3 colour layer)
-forward + backward took 24 ms that way and ~8 ms here (2 threads; measured side by side). The
-backward runs on one thread in pixel order, so gradients are bit-for-bit deterministic (and
-equal to the torch path's index_add_, which also adds in tap order).
+forward + backward took 24 ms that way and ~6 ms here (2 threads; measured side by side). The
+backward adds every texel's terms in pixel order, however many threads share the work, so
+gradients are bit-for-bit deterministic.
 """
 
 from __future__ import annotations
@@ -87,24 +87,28 @@ def mip_forward(level0: np.ndarray, coarse: np.ndarray, uv: np.ndarray, lam: np.
                         out[n, k] += w * coarse[rr - TT, k]
 
 
-@njit(cache=True, boundscheck=False)
-def mip_backward(grad: np.ndarray, idx: np.ndarray, wts: np.ndarray, g0: np.ndarray,
-                 gcoarse: np.ndarray) -> None:  # pragma: no cover - compiled
-    """g0 (T*T, K) and gcoarse (rows, K) += the adjoint of mip_forward applied to grad (N, K)."""
+@njit(parallel=True, cache=True, boundscheck=False)
+def mip_scatter(grad: np.ndarray, idx: np.ndarray, wts: np.ndarray, out: np.ndarray, lo: int,
+                parts: int) -> None:  # pragma: no cover - compiled
+    """out (R, K) += the adjoint of mip_forward for the taps with rows in [lo, lo + R) of the pyramid
+    table (row - lo indexes out), from grad (N, K).
+
+    Parallel over `parts` disjoint bands of out's rows: every part walks all taps in pixel order
+    and adds only those landing in its band, so each row receives its terms in the same order
+    whatever the number of parts (bit-identical results, no atomics)."""
     N, K = grad.shape
-    TT = g0.shape[0]
-    for n in range(N):
-        for t in range(8):
-            w = wts[n, t]
-            if w == 0.0:
-                continue
-            rr = idx[n, t]
-            if rr < TT:
+    R = out.shape[0]
+    for part in prange(parts):
+        a = lo + part * R // parts
+        b = lo + (part + 1) * R // parts
+        for n in range(N):
+            for t in range(8):
+                w = wts[n, t]
+                rr = idx[n, t]
+                if w == 0.0 or rr < a or rr >= b:
+                    continue
                 for k in range(K):
-                    g0[rr, k] += w * grad[n, k]
-            else:
-                for k in range(K):
-                    gcoarse[rr - TT, k] += w * grad[n, k]
+                    out[rr - lo, k] += w * grad[n, k]
 
 
 @njit(parallel=True, cache=True, boundscheck=False)
@@ -124,9 +128,10 @@ def downsample(x: np.ndarray, out: np.ndarray) -> None:  # pragma: no cover - co
 
 
 @njit(parallel=True, cache=True, boundscheck=False)
-def upsample_add(fine: np.ndarray, coarse: np.ndarray) -> None:  # pragma: no cover - compiled
-    """fine (s, s, K) += the adjoint of `downsample` applied to coarse: a quarter of each coarse
-    value to each of its 2x2 texels; for odd s the last row / column also takes its replica's."""
+def upsample_add(fine: np.ndarray, coarse: np.ndarray, accumulate: bool) -> None:  # pragma: no cover - compiled
+    """fine (s, s, K) (+)= the adjoint of `downsample` applied to coarse: a quarter of each coarse
+    value to each of its 2x2 texels; for odd s the last row / column also takes its replica's.
+    accumulate=False overwrites fine (no need to zero it first)."""
     s, K = fine.shape[0], fine.shape[2]
     odd = s % 2 == 1
     for r in prange(s):
@@ -136,4 +141,5 @@ def upsample_add(fine: np.ndarray, coarse: np.ndarray) -> None:  # pragma: no co
             m = mr * (np.float32(2.0) if (odd and c == s - 1) else np.float32(1.0))
             j = c // 2
             for k in range(K):
-                fine[r, c, k] += m * (coarse[i, j, k] * np.float32(0.25))
+                v = m * (coarse[i, j, k] * np.float32(0.25))
+                fine[r, c, k] = fine[r, c, k] + v if accumulate else v

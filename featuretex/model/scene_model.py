@@ -35,6 +35,13 @@ class Render:
         return self.colour if self.residual is None else self.colour + self.residual
 
 
+def _scatter_image(values: torch.Tensor, flat: torch.Tensor, B: int, h: int, w: int) -> torch.Tensor:
+    """(N, K) per covered pixel -> (B, K, h, w) image in channels-last memory, 0 off the mesh."""
+    K = values.shape[1]
+    dense = values.new_zeros(B * h * w, K).index_copy(0, flat, values)
+    return dense.view(B, h, w, K).permute(0, 3, 1, 2)
+
+
 class SceneModel(nn.Module):
     def __init__(self, size: int, channels: int, decoder: str, decoder_kwargs: dict[str, Any],
                  corrections: ViewCorrections | None = None, latent_scale: int = 4, mip: bool = True,
@@ -61,15 +68,16 @@ class SceneModel(nn.Module):
             colour = self.decoder.head(self.texture.sample_colour(batch.uv, rho))   # (N, 3)
             dense = colour.new_zeros(B * h * w, 3).index_copy(0, flat, colour)
             return Render(colour=dense.reshape(B, h, w, 3).permute(0, 3, 1, 2).contiguous(), residual=None)
-        feat = self.texture.sample(batch.uv, rho)                       # (N, 3 + C)
-        colour = self.decoder.head(feat[:, :3])                         # (N, 3)
-        dense = feat.new_zeros(B * h * w, C + 3).index_copy(0, flat, torch.cat([feat[:, 3:], colour], 1))
-        img = dense.reshape(B, h, w, C + 3).permute(0, 3, 1, 2)
-        colour_img = img[:, C:]
-        res = self.decoder.residual(img[:, :C], colour_img, batch.geo)
+        colour = self.decoder.head(self.texture.sample_colour(batch.uv, rho))   # (N, 3)
+        latent = self.texture.sample_latent(batch.uv, rho)                      # (N, C)
+        # pixel-major (channels-last) images, written once each: no slices of a shared tensor, whose
+        # backward would allocate and add full-size zero gradients
+        colour_img = _scatter_image(colour, flat, B, h, w)                      # (B, 3, h, w)
+        img = _scatter_image(torch.cat([latent, colour], 1), flat, B, h, w)     # (B, C + 3, h, w)
+        res = self.decoder.residual_packed(img, C, batch.geo)
         if res is not None:
             res = res * batch.cover[:, None].to(res.dtype)
-        return Render(colour=colour_img.contiguous(), residual=res)
+        return Render(colour=colour_img, residual=res)
 
     def meta(self) -> dict[str, Any]:
         """Plain-typed description (loadable with torch.load(weights_only=True))."""
