@@ -94,7 +94,12 @@ class ScreenDecoder(nn.Module):
 
 
 class TexelDecoder(nn.Module):
-    """The bakeable per-texel head alone: render == sampling the baked RGB texture."""
+    """The bakeable per-texel head alone: render == sampling the baked RGB texture.
+
+    The interface a decoder plugin offers the model (subclass this to get the defaults): `head`,
+    `screen` (a ScreenDecoder or None), `halo`, `residual(feat, colour, geo)`, and
+    `residual_packed(img, channels, geo)`, which the fit calls with latent features and colour in
+    one image (override it to skip the split when your network takes them together)."""
 
     name = "texel"
 

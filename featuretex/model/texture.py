@@ -127,7 +127,8 @@ def coarse_table(level0: torch.Tensor, levels: int) -> torch.Tensor:
 
 
 def build_pyramid(level0: torch.Tensor, levels: int) -> torch.Tensor:
-    """(T, T, C) texture -> (sum of level areas, C) table of levels 0..levels-1 (2x2 box averages)."""
+    """(T, T, C) texture -> (sum of level areas, C) table of levels 0..levels-1 (2x2 box averages;
+    the coarse levels carry no gradient)."""
     T, _, C = level0.shape
     return torch.cat([level0.reshape(T * T, C), coarse_table(level0, levels)], 0)
 
