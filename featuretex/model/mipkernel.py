@@ -28,7 +28,7 @@ def mip_forward(level0: np.ndarray, coarse: np.ndarray, uv: np.ndarray, lam: np.
     """out (N, K) = trilinear samples; idx (N, 8) int64 pyramid rows, wts (N, 8) float32 their weights.
 
     level0 (T*T, K) float32 and coarse (rows, K) float32: the pyramid table split at row T*T
-    (coarse holds levels 1.. as built by texture.coarse_levels); uv (N, 2) float32 (v up);
+    (coarse holds levels 1.. as built by texture.coarse_table); uv (N, 2) float32 (v up);
     lam (N,) float32 level of detail already clamped to [0, top]; sizes, bases (levels + 1,)
     int64 edge length and first row of each level in the pyramid table.
     """
@@ -114,7 +114,8 @@ def mip_scatter(grad: np.ndarray, idx: np.ndarray, wts: np.ndarray, out: np.ndar
 @njit(parallel=True, cache=True, boundscheck=False)
 def downsample(x: np.ndarray, out: np.ndarray) -> None:  # pragma: no cover - compiled
     """out (ceil(s/2), ceil(s/2), K) = 2x2 box means of x (s, s, K); for odd s the last row / column
-    is replicated first (as texture.downsample; the same summation order, so the same floats)."""
+    is replicated first, i.e. averaged alone (as avg_pool2d with ceil_mode=True and
+    count_include_pad=False, which the tests compare it with)."""
     s = x.shape[0]
     S, K = out.shape[0], out.shape[2]
     for i in prange(S):
