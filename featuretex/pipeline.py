@@ -23,6 +23,7 @@ from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.outputs import write_outputs
 from featuretex.export.png import write_texture_png
 from featuretex.fit.checkpoint import result_knobs
+from featuretex.fit.config import check_fit_config
 from featuretex.fit.loop import fit_scene
 from featuretex.fit.render import render_view
 from featuretex.raster.gbuffer import GBuffer
@@ -143,6 +144,7 @@ def _jsonable(obj):
 def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     """Run every stage for one scene into `out`; return the summary written to summary.json."""
     t_start = time.perf_counter()
+    check_fit_config(cfg.fit)   # before any stage runs
     scene = load_scene(resolve_scene_path(cfg.scene))
     out.mkdir(parents=True, exist_ok=True)
     for leftover in remove_partials(out):  # a killed run's temporary files; never a finished output

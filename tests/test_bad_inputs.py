@@ -652,11 +652,12 @@ def test_check_output_dir_reports_a_read_only_folder(tmp_path):
 
 
 
-def test_unknown_fit_precision_gives_one_line(good_scene, tmp_path):
-    p = run_cli(good_scene, tmp_path / "run", tmp_path, *QUICK, "fit.precision=half")
+@pytest.mark.parametrize("knob,value", [("fit.precision", "half"), ("fit.crop", "8"), ("fit.batch", "0")])
+def test_unusable_fit_knob_gives_one_line(good_scene, tmp_path, knob, value):
+    p = run_cli(good_scene, tmp_path / "run", tmp_path, *QUICK, f"{knob}={value}")
     assert p.returncode == 2, p.stderr
     lines = [ln for ln in p.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1 and "fit.precision" in lines[0] and "half" in lines[0], p.stderr
+    assert len(lines) == 1 and knob in lines[0] and value in lines[0], p.stderr
     assert "Traceback" not in p.stderr + p.stdout
 
 

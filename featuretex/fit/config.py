@@ -7,6 +7,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from featuretex.errors import InputError
+
+MIN_CROP = 16   # px: the SSIM window is 11 wide and the screen decoder pads each side
+
 
 @dataclass
 class FitConfig:
@@ -49,3 +53,14 @@ class FitConfig:
     geometry_cache_gb: float = 1.0   # memory for precomputed crop geometry (61 B per object-box pixel; faster steps, same result)
     threads: int = 0                 # torch threads; 0 = all cores (fixed per run for determinism)
     reference_view: str = ""         # view held at identity colour; "" = first fitted view
+
+
+def check_fit_config(cfg: FitConfig) -> None:
+    """One clear message for knob values the fit cannot run with."""
+    from featuretex.model.decoders import resolve_precision   # here: this module stays torch-free
+
+    resolve_precision(cfg.precision)
+    if cfg.crop < MIN_CROP:
+        raise InputError(f"config: fit.crop must be at least {MIN_CROP} pixels (the SSIM window is 11); got {cfg.crop}")
+    if cfg.batch < 1 or cfg.steps < 0:
+        raise InputError(f"config: fit.batch must be >= 1 and fit.steps >= 0; got {cfg.batch} and {cfg.steps}")

@@ -25,7 +25,7 @@ import featuretex.model  # noqa: F401  (registers the built-in decoders)
 from featuretex.atomic import atomic_path, write_json
 from featuretex.errors import input_error
 from featuretex.fit import checkpoint as ckpt
-from featuretex.fit.config import FitConfig
+from featuretex.fit.config import FitConfig, check_fit_config
 from featuretex.fit.losses import masked_ssim, psnr
 from featuretex.fit.photoloss import photometric_loss
 from featuretex.fit.rebake import rebake_colour_layer
@@ -327,6 +327,7 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
             step_hook: Callable[[int], None] | None = None) -> FitResult:
     """fit_scene with hooks: eval_hook(step, model, fit seconds so far) after every evaluation (its own
     time is not counted), step_hook(step) after every step (tests use it to interrupt)."""
+    check_fit_config(cfg)
     key = ckpt.fit_hash(config_hash, cfg, seed)
     fit_dir = run_dir / "fit"
     model_path, ck_path = fit_dir / "model.pt", fit_dir / "checkpoint.pt"
