@@ -18,9 +18,10 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
+from numba import njit, prange
 from scipy.ndimage import gaussian_filter
 
+from featuretex import compiled  # noqa: F401  (numba threading layer)
 from featuretex.scene.colour import linear_to_srgb
 
 PSNR_CAP_DB = 100.0          # identical images score this instead of +inf (JSON has no inf)
@@ -116,41 +117,47 @@ def gain_compensate(render_lin: np.ndarray, photo_lin: np.ndarray, mask: np.ndar
 
 def _shift_sse(render: np.ndarray, photo: np.ndarray, mask: np.ndarray, tile: int, radius: int
                ) -> tuple[np.ndarray, np.ndarray]:
-    """Per tile and shift: squared-error sum and valid-pixel count.
+    """Per tile and shift: squared-error sum and valid-value count.
 
     render, photo: (H, W, C) float64; mask: (H, W) bool. Returns sse, n: (TH, TW, S, S) with
     S = 2 * radius + 1, where [.., i, j] compares render pixel q with photo pixel
-    q + (i - radius, j - radius), counting pixels valid in both.
+    q + (i - radius, j - radius), counting pixels valid in both (times C). Compiled: the numpy
+    form with sliding windows took 0.5 s per 640 x 480 view (a third of the demo's scoring stage).
     """
     h, w, c = render.shape
     th, tw = -(-h // tile), -(-w // tile)
-    hp, wp = th * tile, tw * tile
-    r = radius
-    # render side padded to whole tiles (padding is invalid); photo side also by the shift radius
-    rend = np.zeros((hp, wp, c))
-    rend[:h, :w] = render
-    rmask = np.zeros((hp, wp), bool)
-    rmask[:h, :w] = mask
-    phot = np.zeros((hp + 2 * r, wp + 2 * r, c))
-    phot[r:r + h, r:r + w] = photo
-    pmask = np.zeros((hp + 2 * r, wp + 2 * r), bool)
-    pmask[r:r + h, r:r + w] = mask
-    s = 2 * r + 1
-    pwin = sliding_window_view(phot, (s, s), axis=(0, 1))     # (hp, wp, C, S, S), no copy
-    mwin = sliding_window_view(pmask, (s, s), axis=(0, 1))    # (hp, wp, S, S)
-    sse = np.empty((th, tw, s, s))
-    cnt = np.empty((th, tw, s, s))
-    # one band of tile rows at a time keeps the (rows, W, C, S, S) temporary near 32 MB
-    rows_per_band = max(tile, (4_000_000 // max(1, wp * c * s * s)) // tile * tile)
-    for y0 in range(0, hp, rows_per_band):
-        y1 = min(hp, y0 + rows_per_band)
-        valid = rmask[y0:y1, :, None, None] & mwin[y0:y1]                        # (b, wp, S, S)
-        d = rend[y0:y1, :, :, None, None] - pwin[y0:y1]                          # (b, wp, C, S, S)
-        e = np.einsum("ywcij,ywcij->ywij", d, d) * valid
-        nb = (y1 - y0) // tile
-        sse[y0 // tile:y0 // tile + nb] = e.reshape(nb, tile, tw, tile, s, s).sum(axis=(1, 3))
-        cnt[y0 // tile:y0 // tile + nb] = valid.reshape(nb, tile, tw, tile, s, s).sum(axis=(1, 3))
+    s = 2 * radius + 1
+    sse = np.zeros((th, tw, s, s))
+    cnt = np.zeros((th, tw, s, s))
+    _shift_sse_kernel(np.ascontiguousarray(render, np.float64), np.ascontiguousarray(photo, np.float64),
+                      np.ascontiguousarray(mask, np.bool_), tile, radius, sse, cnt)
     return sse, cnt * c
+
+
+@njit(parallel=True, cache=True, boundscheck=False)
+def _shift_sse_kernel(render, photo, mask, tile, radius, sse, cnt):  # pragma: no cover - compiled
+    h, w, c = render.shape
+    th, tw, s = sse.shape[0], sse.shape[1], sse.shape[2]
+    for ty in prange(th):
+        for tx in range(tw):
+            for y in range(ty * tile, min(h, (ty + 1) * tile)):
+                for x in range(tx * tile, min(w, (tx + 1) * tile)):
+                    if not mask[y, x]:
+                        continue
+                    for i in range(s):
+                        yy = y + i - radius
+                        if yy < 0 or yy >= h:
+                            continue
+                        for j in range(s):
+                            xx = x + j - radius
+                            if xx < 0 or xx >= w or not mask[yy, xx]:
+                                continue
+                            e = 0.0
+                            for k in range(c):
+                                d = render[y, x, k] - photo[yy, xx, k]
+                                e += d * d
+                            sse[ty, tx, i, j] += e
+                            cnt[ty, tx, i, j] += 1.0
 
 
 def tolerant_psnr(render_srgb: np.ndarray, photo_srgb: np.ndarray, mask: np.ndarray,
