@@ -1,5 +1,5 @@
-"""Settings shared by the compiled (numba) kernels of featuretex.model.mipkernel and
-featuretex.fit.photoloss.
+"""Settings shared by the compiled (numba) kernels: featuretex.model.mipkernel (texture sampling),
+featuretex.fit.photoloss (the training loss) and featuretex.metrics (alignment-tolerant PSNR).
 
 Threading layer "omp": numba's OpenMP pool loads libgomp by the same soname as torch's, so in one
 process both run on one OpenMP runtime and their thread teams do not fight for the cores; with

@@ -114,6 +114,24 @@ def test_odd_sized_pyramid_matches_avg_pool2d():
     np.testing.assert_allclose(build_pyramid(level0, 5).numpy(), _reference_pyramid(level0, 5).numpy(), atol=1e-6)
 
 
+def _ours_and_reference(table, T, uv, rho, up):
+    """([ours, reference] samples, [ours, reference] gradients of sum(samples * up)) of a (T*T, 3)
+    layer: sample_layer against autograd through F.embedding_bag over an avg_pool2d pyramid."""
+    taps = mip_taps(uv, rho, T)
+    outs, grads = [], []
+    for ours in (True, False):
+        leaf = table.clone().requires_grad_()
+        if ours:
+            out = sample_layer(leaf, T, uv, rho)
+        else:
+            out = torch.nn.functional.embedding_bag(taps.index, _reference_pyramid(leaf.view(T, T, 3), taps.levels),
+                                                    taps.offsets, mode="sum", per_sample_weights=taps.weight)
+        (out * up).sum().backward()
+        outs.append(out.detach().numpy())
+        grads.append(leaf.grad.numpy())
+    return outs, grads
+
+
 def test_sampling_and_gradient_match_torch_autograd():
     """The layer sampler (compiled per-pixel kernels, coarse levels built apart from level 0,
     hand-written backward) equals torch autograd through an avg_pool2d pyramid and
@@ -128,19 +146,8 @@ def test_sampling_and_gradient_match_torch_autograd():
         uv = torch.from_numpy(rng.uniform(*uv_range, (500, 2)).astype(np.float32))
         rho = None if rho_range is None else torch.from_numpy(rng.uniform(*rho_range, 500).astype(np.float32) / T)
         up = torch.from_numpy(rng.normal(size=(500, 3)).astype(np.float32))
-        taps = mip_taps(uv, rho, T)
-        assert taps.levels >= (3 if rho_range == (0.2, 6.0) else 1)
-        outs, grads = [], []
-        for ours in (True, False):
-            leaf = table.clone().requires_grad_()
-            if ours:
-                out = sample_layer(leaf, T, uv, rho)
-            else:
-                out = torch.nn.functional.embedding_bag(taps.index, _reference_pyramid(leaf.view(T, T, 3), taps.levels),
-                                                        taps.offsets, mode="sum", per_sample_weights=taps.weight)
-            (out * up).sum().backward()
-            outs.append(out.detach().numpy())
-            grads.append(leaf.grad.numpy())
+        assert mip_taps(uv, rho, T).levels >= (3 if rho_range == (0.2, 6.0) else 1)
+        outs, grads = _ours_and_reference(table, T, uv, rho, up)
         np.testing.assert_allclose(outs[0], outs[1], rtol=1e-5, atol=1e-6)
         np.testing.assert_allclose(grads[0], grads[1], rtol=1e-5, atol=1e-6)
 
@@ -157,17 +164,7 @@ def test_parallel_scatter_is_bit_identical_to_one_thread_and_matches_the_referen
     uv = torch.from_numpy(rng.uniform(0, 1, (3000, 2)).astype(np.float32))
     rho = torch.from_numpy(rng.uniform(0.3, 5.0, 3000).astype(np.float32) / T)
     up = torch.from_numpy(rng.normal(size=(3000, 3)).astype(np.float32))
-    taps = mip_taps(uv, rho, T)
-    grads = []
-    for ours in (True, False):
-        leaf = table.clone().requires_grad_()
-        if ours:
-            out = sample_layer(leaf, T, uv, rho)
-        else:
-            out = torch.nn.functional.embedding_bag(taps.index, _reference_pyramid(leaf.view(T, T, 3), taps.levels),
-                                                    taps.offsets, mode="sum", per_sample_weights=taps.weight)
-        (out * up).sum().backward()
-        grads.append(leaf.grad.numpy())
+    _, grads = _ours_and_reference(table, T, uv, rho, up)
     np.testing.assert_allclose(grads[0], grads[1], rtol=1e-5, atol=1e-6)
     idx = rng.integers(0, 5000, (3000, 8)).astype(np.int64)  # colliding rows: order matters
     wts = rng.random((3000, 8)).astype(np.float32)

@@ -327,7 +327,7 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
             step_hook: Callable[[int], None] | None = None) -> FitResult:
     """fit_scene with hooks: eval_hook(step, model, fit seconds so far) after every evaluation (its own
     time is not counted), step_hook(step) after every step (tests use it to interrupt)."""
-    check_fit_config(cfg)
+    check_fit_config(cfg)   # the pipeline checks first; this is for callers of run_fit itself
     key = ckpt.fit_hash(config_hash, cfg, seed)
     fit_dir = run_dir / "fit"
     model_path, ck_path = fit_dir / "model.pt", fit_dir / "checkpoint.pt"

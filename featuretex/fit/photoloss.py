@@ -45,6 +45,15 @@ def _sizes(img: np.ndarray, k: np.ndarray) -> tuple[int, int, int, int, int, int
     return B, C, h, w, n, r, h - 2 * r, w - 2 * r
 
 
+@njit(cache=True, inline="always")
+def _ssim_terms(st: np.ndarray, y: int, x: int, c1: np.float32, c2: np.float32):  # pragma: no cover
+    """mx, my and the four factors A1, A2, B1, B2 of SSIM = A1 A2 / (B1 B2) at (y, x) of the moments
+    st (5, hv, wv) = mx, my, mxx, myy, mxy."""
+    mx, my = st[0, y, x], st[1, y, x]
+    vx, vy, cxy = st[2, y, x] - mx * mx, st[3, y, x] - my * my, st[4, y, x] - mx * my
+    return mx, my, 2 * mx * my + c1, 2 * cxy + c2, mx * mx + my * my + c1, vx + vy + c2
+
+
 @njit(parallel=True, cache=True, boundscheck=False)
 def _forward(pred, targ, mask, k, c1, c2, pm, tm, dpm, dtm, stats, l1_part, ssim_part):  # pragma: no cover
     """Per plane (crop b, channel c) of the linear images pred, targ (B, C, h, w) float32: the
@@ -88,9 +97,8 @@ def _forward(pred, targ, mask, k, c1, c2, pm, tm, dpm, dtm, stats, l1_part, ssim
         for y in range(hv):
             for x in range(wv):
                 if mask[b, y + r, x + r]:
-                    mx, my = st[0, y, x], st[1, y, x]
-                    vx, vy, cxy = st[2, y, x] - mx * mx, st[3, y, x] - my * my, st[4, y, x] - mx * my
-                    ss += ((2 * mx * my + c1) * (2 * cxy + c2)) / ((mx * mx + my * my + c1) * (vx + vy + c2))
+                    _, _, A1, A2, B1, B2 = _ssim_terms(st, y, x, c1, c2)
+                    ss += (A1 * A2) / (B1 * B2)
         ssim_part[q] = ss
 
 
@@ -106,10 +114,7 @@ def _backward(mask, k, c1, c2, pm, tm, dpm, dtm, stats, a_l1, a_ssim, gpred, gta
         for y in range(hv):
             for x in range(wv):
                 if mask[b, y + r, x + r]:
-                    mx, my = st[0, y, x], st[1, y, x]
-                    vx, vy, cxy = st[2, y, x] - mx * mx, st[3, y, x] - my * my, st[4, y, x] - mx * my
-                    A1, A2 = 2 * mx * my + c1, 2 * cxy + c2
-                    B1, B2 = mx * mx + my * my + c1, vx + vy + c2
+                    mx, my, A1, A2, B1, B2 = _ssim_terms(st, y, x, c1, c2)
                     D = B1 * B2
                     S = A1 * A2 / D
                     G[0, y, x] = a_ssim * 2 * (my * (A2 - A1) - mx * S * (B2 - B1)) / D
@@ -146,7 +151,8 @@ class _PhotoLoss(torch.autograd.Function):
         B, C, h, w = pred.shape
         pred, targ = pred.detach().contiguous(), targ.detach().contiguous()
         pm, tm, dpm, dtm = (torch.empty(B, C, h, w) for _ in range(4))
-        m = mask.contiguous().numpy()
+        mask = mask.contiguous()
+        m = mask.numpy()
         k = gaussian_kernel().numpy()
         r = (len(k) - 1) // 2
         c1, c2 = np.float32(SSIM_K1 ** 2), np.float32(SSIM_K2 ** 2)
@@ -166,7 +172,7 @@ class _PhotoLoss(torch.autograd.Function):
         mask, pm, tm, dpm, dtm, stats = ctx.saved_tensors
         k, c1, c2, n_l1, n_ss = ctx.consts
         gp, gt = torch.empty_like(pm), torch.empty_like(pm)
-        _backward(mask.contiguous().numpy(), k, c1, c2, pm.numpy(), tm.numpy(), dpm.numpy(), dtm.numpy(),
+        _backward(mask.numpy(), k, c1, c2, pm.numpy(), tm.numpy(), dpm.numpy(), dtm.numpy(),
                   stats.numpy(), np.float32(float(grad[0]) / n_l1), np.float32(float(grad[1]) / n_ss),
                   gp.numpy(), gt.numpy())
         return gp, gt, None

@@ -245,12 +245,6 @@ class FeatureTexture(nn.Module):
         """(N, C) latent layer at `uv` (N, 2) with footprints `rho` (N,) (None = level 0)."""
         return sample_layer(self.latent, self.latent_size, uv, rho)
 
-    def sample(self, uv: torch.Tensor, rho: torch.Tensor | None) -> torch.Tensor:
-        """(N, 3 + C): colour layer then latent layer, each mip-filtered at its own resolution."""
-        if self.channels == 0:
-            return self.sample_colour(uv, rho)
-        return torch.cat([self.sample_colour(uv, rho), self.sample_latent(uv, rho)], 1)
-
 
 def sample_layer(flat: torch.Tensor, size: int, uv: torch.Tensor, rho: torch.Tensor | None) -> torch.Tensor:
     """(N, K) trilinear samples of a layer stored flat (T*T, K) at `uv` (N, 2), footprints `rho` (N,).
