@@ -21,6 +21,7 @@ from featuretex.bake.texel_size import auto_texture_size
 from featuretex.config import FeaturetexConfig
 from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.outputs import write_outputs
+from featuretex.export.gltf import gltf_from_scene
 from featuretex.export.png import write_texture_png
 from featuretex.fit.checkpoint import result_knobs
 from featuretex.fit.config import check_fit_config
@@ -96,14 +97,21 @@ def stage_bake(scene: Scene, gbuffers, texels: TexelBuffer, model, cfg: Featuret
     return book.run("bake", key, [npz, png], compute, lambda: np.load(npz)["texture_lin"])
 
 
+def output_frame(scene: Scene) -> np.ndarray:
+    """(4, 4) scene -> glTF matrix: metres, the scene's up along +Y."""
+    return gltf_from_scene(scene.up.vector, scene.manifest.unit_m)
+
+
 def stage_export(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook, key: str) -> list[Path]:
     exporters = [plugins.load("exporters", name)() for name in cfg.export.formats]
     files = [out / "model.glb"] if "glb" in cfg.export.formats else []
+    frame = output_frame(scene)
 
     def compute():
         written: list[Path] = []
         for ex in exporters:
-            written += ex.export(out, scene.mesh, out / "texture.png", unlit=cfg.export.unlit)
+            written += ex.export(out, scene.mesh, out / "texture.png", unlit=cfg.export.unlit,
+                                 gltf_from_scene=frame)
         return written
 
     return book.run("export", key, files, compute, lambda: files)
@@ -174,7 +182,7 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
 
     bake_key = key_of(fit_key, cfg.bake, cfg.texture)
     baked_tex = stage_bake(scene, gbuffers, texels, fit.model, cfg, out, book, bake_key)
-    stage_export(scene, cfg, out, book, key_of(bake_key, cfg.export))
+    stage_export(scene, cfg, out, book, key_of(bake_key, cfg.export, output_frame(scene).tolist()))
     diag = stage_diagnose(scene, gbuffers, texels, baked_tex, fit, cfg, out, book,
                           key_of(bake_key, cfg.diagnose))
 
@@ -237,6 +245,8 @@ def build_summary(scene: Scene, cfg: FeaturetexConfig, size: int, heldout: dict,
         "fit": {"steps": hist.get("steps_done", None), "stopped": fit.stopped},
         "scene": str(m.path),
         "unit": m.unit,
+        "up": scene.up.as_list(),
+        "gltf_from_scene": output_frame(scene).tolist(),
         "texture_size": size,
         "views": {"fitted": len(m.fitted), "heldout": len(m.heldout)},
         "seed": cfg.seed,

@@ -10,13 +10,13 @@ import subprocess
 from pathlib import Path
 
 import numpy as np
+import pygltflib
 import pytest
 import trimesh
 from PIL import Image
 
 from featuretex import plugins
 from featuretex.export import Exporter
-from featuretex.export.glb import pack_glb, split_glb
 from featuretex.export.gltf import build_glb, read_texcoords, write_glb
 from featuretex.export.obj import write_obj
 from featuretex.export.ply import write_vertex_colour_ply
@@ -116,6 +116,12 @@ def _validate(path: Path) -> dict:
     return json.loads(r.stdout)
 
 
+def _split(glb: bytes) -> tuple[dict, bytes]:
+    """GLB bytes -> (JSON tree, BIN chunk), read by pygltflib."""
+    doc = pygltflib.GLTF2.load_from_bytes(glb)
+    return json.loads(doc.to_json()), doc.binary_blob()
+
+
 @pytest.mark.parametrize("unlit", [True, False], ids=["unlit", "lit"])
 def test_glb_has_zero_validator_errors(tmp_path, sphere, checker, unlit):
     png = encode_texture_png(checker)
@@ -134,10 +140,10 @@ def test_glb_has_zero_validator_errors(tmp_path, sphere, checker, unlit):
 
 def test_validator_does_catch_a_broken_glb(tmp_path, sphere, checker):
     """The validator check can fail: an accessor claiming more vertices than its buffer holds."""
-    tree, binary = split_glb(build_glb(sphere, encode_texture_png(checker)))
-    tree["accessors"][tree["meshes"][0]["primitives"][0]["attributes"]["POSITION"]]["count"] += 1000
+    doc = pygltflib.GLTF2.load_from_bytes(build_glb(sphere, encode_texture_png(checker)))
+    doc.accessors[doc.meshes[0].primitives[0].attributes.POSITION].count += 1000
     bad = tmp_path / "bad.glb"
-    bad.write_bytes(pack_glb(tree, binary))
+    bad.write_bytes(b"".join(doc.save_to_bytes()))
     assert _validate(bad)["issues"]["numErrors"] > 0
 
 
@@ -148,7 +154,7 @@ def test_glb_json_material_sampler_and_image(sphere, checker):
     assert len(data) % 4 == 0 and struct.unpack_from("<I", data, 8)[0] == len(data)
     json_len = struct.unpack_from("<I", data, 12)[0]
     assert json_len % 4 == 0
-    tree, binary = split_glb(data)
+    tree, binary = _split(data)
     mat = tree["materials"][0]
     assert mat["extensions"] == {UNLIT: {}} and tree["extensionsUsed"] == [UNLIT]
     assert UNLIT not in tree.get("extensionsRequired", [])
@@ -162,7 +168,7 @@ def test_glb_json_material_sampler_and_image(sphere, checker):
     bv = tree["bufferViews"][img["bufferView"]]
     assert img["mimeType"] == "image/png"
     assert binary[bv["byteOffset"]:bv["byteOffset"] + bv["byteLength"]] == png   # embedded unchanged
-    lit, _ = split_glb(build_glb(sphere, png, unlit=False))
+    lit, _ = _split(build_glb(sphere, png, unlit=False))
     assert "extensions" not in lit["materials"][0] and "extensionsUsed" not in lit
 
 
@@ -220,7 +226,7 @@ def test_exporter_plugins_write_into_run_dir(tmp_path, sphere, checker):
     for name in ("glb", "obj"):
         exporter = plugins.load("exporters", name)()
         assert isinstance(exporter, Exporter) and exporter.name == name
-        written += exporter.export(out, sphere, tex, unlit=True)
+        written += exporter.export(out, sphere, tex, unlit=True, gltf_from_scene=np.eye(4))
     names = sorted(p.name for p in written)
     assert names == ["model.glb", "model.mtl", "model.obj", "texture.png"]   # texture copied beside the MTL
     assert (out / "texture.png").read_bytes() == before and tex.read_bytes() == before
@@ -342,3 +348,49 @@ def test_round_trip_catches_double_srgb_encoding(tmp_path, sphere, checker, inte
     theirs, pcov = _pyrender(_export("glb-unlit", tmp_path, sphere, twice), view)
     db, _ = _compare(ours, cov, theirs, pcov)
     assert db < 25.0, f"double sRGB encoding still scores {db:.1f} dB"
+
+
+# --------------------------------------------------------------------------------------------
+# glTF frame: metres, the scene's up along +Y, as a viewer computes world space
+# --------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("up", [[0.0, 0.0, 1.0], [0.0, -1.0, 0.0], [0.3, -0.2, 0.9]], ids=["z", "-y", "tilted"])
+def test_glb_world_bounds_are_metres_with_up_along_y(tmp_path, checker, up):
+    from scipy.spatial.transform import Rotation
+
+    from featuretex.export.gltf import gltf_from_scene, read_glb_mesh
+
+    # a 100 x 200 x 300 mm box away from the origin, standing along `up`: scene units are mm
+    up = np.asarray(up) / np.linalg.norm(up)
+    box = trimesh.creation.box(extents=[100.0, 200.0, 300.0])
+    stand = Rotation.align_vectors([up], [[0.0, 0.0, 1.0]])[0].as_matrix()   # box's +z (300 mm) along up
+    v = (np.asarray(box.vertices) @ stand.T + [40.0, -70.0, 500.0])
+    v, f, uv = make_atlas(v, np.asarray(box.faces), T)
+    mesh = SceneMesh(v, f, uv, smooth_normals(v, f))
+    m = gltf_from_scene(up, 0.001)
+    path = write_glb(tmp_path / "model.glb", mesh, encode_texture_png(checker), gltf_from_scene=m)
+    assert _validate(path)["issues"]["numErrors"] == 0
+    # world space as trimesh's glTF loader computes it (node transforms applied)
+    world = trimesh.load(path, force="scene").to_geometry().vertices
+    assert np.ptp(world[:, 1]) == pytest.approx(0.300, abs=1e-6)               # 300 mm tall along +Y
+    if np.abs(up).max() == 1.0:      # an axis: the box's sides stay axis-aligned, only turned about Y
+        assert sorted(np.ptp(world, axis=0)) == pytest.approx([0.1, 0.2, 0.3], abs=1e-6)
+    assert world[:, 1].min() == pytest.approx(float(np.min(v @ up)) * 0.001, abs=1e-6)   # height above 0
+    # rigid up to the unit: distances are the scene's in metres, handedness kept (det > 0)
+    d_scene = np.linalg.norm(v[1:] - v[0], axis=1) * 0.001
+    assert np.allclose(np.linalg.norm(world[1:] - world[0], axis=1), d_scene, atol=1e-7)
+    assert np.linalg.det(m[:3, :3]) > 0
+    # the vertex data stay in the scene frame, the conversion is the root node's matrix (pygltflib)
+    back, matrix = read_glb_mesh(path)
+    assert np.allclose(back.vertices, v, atol=1e-3) and np.allclose(matrix, m)
+    assert np.allclose(back.uv, uv, atol=1e-6) and np.array_equal(back.faces, f)
+
+
+def test_gltf_from_scene_z_up_is_the_usual_conversion():
+    """A +Z-up scene maps as (x, y, z) -> (x, z, -y), the conversion glTF tools apply to Z-up data
+    (common practice), and a +Y-up scene in metres is left alone."""
+    from featuretex.export.gltf import gltf_from_scene
+
+    expected = np.array([[1, 0, 0, 0], [0, 0, 1, 0], [0, -1, 0, 0], [0, 0, 0, 1]], float)
+    assert np.allclose(gltf_from_scene([0, 0, 1], 1.0), expected, atol=1e-12)
+    assert np.array_equal(gltf_from_scene([0, 1, 0], 1.0), np.eye(4))
+    assert np.allclose(gltf_from_scene([0, 0, 2], 0.01)[:3, :3], 0.01 * expected[:3, :3], atol=1e-12)

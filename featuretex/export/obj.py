@@ -5,6 +5,7 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
+import numpy as np
 import trimesh
 
 from featuretex.atomic import atomic_path, write_text
@@ -55,11 +56,14 @@ def write_obj(obj_path: str | Path, mesh: SceneMesh, texture_name: str = "textur
 
 
 class ObjExporter:
-    """Exporter plugin 'obj': `model.obj` + `model.mtl`, referencing the texture by file name."""
+    """Exporter plugin 'obj': `model.obj` + `model.mtl`, referencing the texture by file name.
+
+    OBJ defines no unit and no up axis: the file keeps the scene's frame and unit."""
 
     name = "obj"
 
-    def export(self, out_dir: Path, mesh: SceneMesh, texture_png: Path, *, unlit: bool) -> list[Path]:
+    def export(self, out_dir: Path, mesh: SceneMesh, texture_png: Path, *, unlit: bool,
+               gltf_from_scene: np.ndarray) -> list[Path]:
         out_dir, texture_png = Path(out_dir), Path(texture_png)
         written = write_obj(out_dir / "model.obj", mesh, texture_png.name, unlit=unlit)
         beside = out_dir / texture_png.name

@@ -68,12 +68,13 @@ class Layout:
 
 def layout_from_model(glb: Path, size: int) -> Layout:
     """Texel centres inside a UV triangle of model.glb, each standing for (3D area / UV area of its
-    triangle) / T^2, and the surface point it maps to."""
+    triangle) / T^2, and the surface point it maps to (scene frame and units: the glb's vertex data
+    before its root node's conversion to metres and +Y up)."""
     from featuretex.diagnose.grid import texel_areas
+    from featuretex.export.gltf import read_glb_mesh
     from featuretex.raster.uvspace import rasterise_uv
-    from featuretex.scene.mesh import load_mesh
 
-    mesh = load_mesh(glb, str(glb))
+    mesh, _ = read_glb_mesh(glb)
     texels = rasterise_uv(mesh, size)
     return Layout(texels.valid, texel_areas(mesh, texels), texels.position)
 

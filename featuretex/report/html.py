@@ -266,21 +266,6 @@ def regions_table_html(regions: list[errormap.Region], unit: str) -> str:
             f'</tr></thead><tbody>{"".join(rows)}</tbody></table></div>')
 
 
-def _scene_cameras(run: RunDir) -> list[np.ndarray] | None:
-    """The scene's (4, 4) world_to_camera poses (they give the turntable its up and front), if the
-    scene file is still readable."""
-    scene = run.summary.get("scene")
-    if not scene:
-        return None
-    try:
-        from featuretex.scene.manifest import read_manifest
-
-        return [v.world_to_camera for v in read_manifest(scene).views]
-    except Exception as e:  # scene moved or unreadable: fall back to glTF's +Y up
-        log.info("report: turntable upright by glTF's +Y (scene cameras unavailable: %s)", e)
-        return None
-
-
 def turntable_html(run: RunDir) -> str:
     title = '<section id="turntable"><h2>Turntable</h2>'
     if not run.has("model.glb"):
@@ -289,7 +274,7 @@ def turntable_html(run: RunDir) -> str:
         from featuretex.report import turntable
 
         frames = turntable.turntable(run.path / "model.glb", run.path / TURNTABLE_FILE, frames=TURNTABLE_FRAMES,
-                                     size=TURNTABLE_PX, cameras=_scene_cameras(run))
+                                     size=TURNTABLE_PX)
     except Exception as e:  # no EGL, damaged file...: the rest of the report still stands
         log.warning("report: turntable not rendered (%s: %s)", type(e).__name__, e)
         return f"{title}{_absent(f'could not render model.glb: {type(e).__name__}: {e}')}</section>"

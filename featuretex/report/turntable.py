@@ -1,9 +1,11 @@
 """Turntable preview of the exported model: frames rendered with pyrender (headless EGL, unlit, as a
 glTF viewer shows KHR_materials_unlit) and an animated PNG of them.
 
-The camera orbits the model's bounding sphere about `up` at a fixed elevation and distance, so the
-whole model stays in view. Camera poses follow pyrender/OpenGL: camera looks down
-its -z axis, +y up.
+The model is shown exactly as a glTF viewer loads it (node transforms applied): the camera orbits
+its bounding sphere about glTF's +Y (up) at a fixed elevation and distance, starting from glTF's
++Z (the front of an asset), so the whole model stays in view and a model that is not upright in
+the file is not upright here either. Camera poses follow pyrender/OpenGL: camera looks down its
+-z axis, +y up.
 """
 
 from __future__ import annotations
@@ -69,17 +71,6 @@ def orbit(centre: np.ndarray, radius: float, up: np.ndarray, frames: int, *, ele
     return Orbit(poses, yfov, max(dist - radius * 1.5, dist * 1e-3), dist + radius * 1.5)
 
 
-def up_and_front(world_to_camera: list[np.ndarray], centre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """World up and front directions guessed from the photo cameras (OpenCV axes, +y down):
-    photographers hold cameras roughly upright, so up = -(mean camera +y); front = from `centre`
-    towards the first camera."""
-    R = np.stack([np.asarray(m, np.float64)[:3, :3] for m in world_to_camera])
-    up = _unit(-R[:, 1, :].mean(axis=0))
-    m0 = np.asarray(world_to_camera[0], np.float64)
-    eye = -m0[:3, :3].T @ m0[:3, 3]
-    return up, _unit(eye - centre)
-
-
 def load_model(glb: Path) -> trimesh.Scene:
     return trimesh.load(str(glb), force="scene")
 
@@ -128,14 +119,15 @@ def write_animation(path: Path, frames: list[np.ndarray], seconds_per_turn: floa
     return path
 
 
-def turntable(glb: Path, out: Path, *, frames: int = 36, size: int = 360,
-              cameras: list[np.ndarray] | None = None) -> list[np.ndarray]:
-    """Render `frames` views of `glb`, write them to `out` as an animated PNG and return them (each
-    (size, size, 4) uint8 RGBA). Upright and front come from the photo `cameras` ((4, 4)
-    world_to_camera each) when given, else glTF's +Y is up."""
+GLTF_UP = np.array([0.0, 1.0, 0.0])
+GLTF_FRONT = np.array([0.0, 0.0, 1.0])
+
+
+def turntable(glb: Path, out: Path, *, frames: int = 36, size: int = 360) -> list[np.ndarray]:
+    """Render `frames` views of `glb` as loaded (glTF's +Y up, first frame from +Z), write them to
+    `out` as an animated PNG and return them (each (size, size, 4) uint8 RGBA)."""
     model = load_model(glb)
     centre, radius = bounding_sphere(model)
-    up, front = (np.array([0.0, 1.0, 0.0]), None) if not cameras else up_and_front(cameras, centre)
-    shots = render_frames(model, orbit(centre, radius, up, frames, front=front), size)
+    shots = render_frames(model, orbit(centre, radius, GLTF_UP, frames, front=GLTF_FRONT), size)
     write_animation(out, shots)
     return shots

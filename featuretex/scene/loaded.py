@@ -13,6 +13,7 @@ from featuretex.errors import input_error
 from featuretex.scene.images import SWAPS_AXES, load_mask, load_photo, load_photo_levels, verify_image
 from featuretex.scene.manifest import Manifest, View, read_manifest
 from featuretex.scene.mesh import SceneMesh, load_mesh
+from featuretex.scene.up import UpAxis, scene_up
 
 PHOTO_CACHE_BYTES = 1 << 30  # decoded photos kept in memory; older ones are decoded again when asked for
 
@@ -58,6 +59,11 @@ class Scene:
     def photo_mask(self, view: View) -> np.ndarray | None:
         """(H, W) bool object mask from the mask file, or None when the view has none."""
         return load_mask(view.mask, self.file, view.name, (view.camera.width, view.camera.height))
+
+    @cached_property
+    def up(self) -> UpAxis:
+        """The scene's up direction: given in scene.yaml, or estimated from the cameras."""
+        return scene_up(self.manifest)
 
     @cached_property
     def content_hash(self) -> str:

@@ -15,7 +15,7 @@ from featuretex.errors import input_error
 from featuretex.scene.camera import MODELS, Camera
 
 FORMAT = "featuretex-scene/1"
-TOP_KEYS = {"format", "mesh", "unit", "cameras", "views"}
+TOP_KEYS = {"format", "mesh", "unit", "up", "cameras", "views"}
 CAMERA_KEYS = {"model", "width", "height", "fx", "fy", "cx", "cy", "distortion"}
 VIEW_KEYS = {"name", "image", "mask", "camera", "world_to_camera", "holdout"}
 # scene units accepted, with their length in metres
@@ -70,6 +70,7 @@ class Manifest:
     unit: str
     cameras: dict[str, Camera]
     views: tuple[View, ...]
+    up: np.ndarray | None = None     # (3,) float64 unit, scene frame, when scene.yaml gives it
 
     @property
     def root(self) -> Path:
@@ -172,6 +173,19 @@ def _unknown_keys(d: dict, allowed: set[str], file: str, *, view: str | None, wh
     if extra:
         raise input_error(file, f"unknown key(s) {', '.join(extra)} in {where}", view=view, field=extra[0],
                           hint=f"allowed: {', '.join(sorted(allowed))}")
+
+
+def parse_up(value: Any, file: str) -> np.ndarray:
+    """`up: [x, y, z]` -> (3,) float64 unit vector."""
+    if not isinstance(value, list) or len(value) != 3:
+        raise input_error(file, f"expected a direction [x, y, z], got {_short(value)}", field="up",
+                          hint="e.g. 'up: [0, 0, 1]' for a scene whose +z points up; leave it out to estimate it")
+    v = np.array([_number(x, file, view=None, fld=f"up[{i}]") for i, x in enumerate(value)])
+    norm = float(np.linalg.norm(v))
+    if not (0 < norm < math.inf):
+        raise input_error(file, f"the direction {_short(value)} has no length", field="up",
+                          hint="e.g. 'up: [0, 0, 1]' for a scene whose +z points up")
+    return v / norm
 
 
 def _text_id(value: Any) -> str | None:
@@ -418,4 +432,5 @@ def read_manifest(path: str | Path) -> Manifest:
     if n_fit < 2:
         raise input_error(file, f"only {n_fit} fitted view; at least 2 are needed", field="views[].holdout",
                           hint="mark at least two views 'holdout: false'")
-    return Manifest(path=path, mesh=mesh, unit=unit, cameras=cameras, views=tuple(views))
+    up = parse_up(data["up"], file) if data.get("up") is not None else None
+    return Manifest(path=path, mesh=mesh, unit=unit, cameras=cameras, views=tuple(views), up=up)
