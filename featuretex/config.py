@@ -1,7 +1,9 @@
-"""Structured configuration: one dataclass per stage, registered in Hydra's ConfigStore.
+"""The run's settings: one dataclass per stage, each beside its stage, mounted here under its key
+and registered in Hydra's ConfigStore.
 
-Overrides are type-checked and unknown keys are refused by Hydra (struct mode). Plugins are
-chosen by registered *name* only (`raster.backend=embree`, `fit.decoder=...`).
+Every field declares what it allows (featuretex/settings.py), and the command line checks every
+setting before any stage runs. Plugins are chosen by registered *name* only (`raster.backend=embree`,
+`fit.decoder=...`).
 """
 
 from __future__ import annotations
@@ -11,37 +13,19 @@ from typing import Any
 
 from hydra.core.config_store import ConfigStore
 
-from featuretex.bake.baseline import BaselineConfig
-from featuretex.bake.neural import BakeConfig
+from featuretex.bake.config import BakeConfig, BaselineConfig, TextureConfig
 from featuretex.diagnose.config import DiagnoseConfig
+from featuretex.export.config import ExportConfig
 from featuretex.fit.config import FitConfig
-
-
-@dataclass
-class RasterConfig:
-    backend: str = "embree"       # rasteriser plugin name (entry-point group featuretex.rasterisers)
-
-
-@dataclass
-class TextureConfig:
-    size: int = 0                 # output texture size in texels; 0 = automatic from texel density
-    min_size: int = 256
-    max_size: int = 2048
-    gutter: int = 8               # gutter padding in texels (common practice: >= 4 for mipmaps)
-    bits: int = 8                 # PNG bit depth of texture.png: 8 or 16
-
-
-@dataclass
-class ExportConfig:
-    formats: list[str] = field(default_factory=lambda: ["glb", "obj"])  # exporter plugin names
-    unlit: bool = True            # glTF KHR_materials_unlit: viewers show the photographed look
+from featuretex.raster.config import RasterConfig
+from featuretex.settings import setting
 
 
 @dataclass
 class FeaturetexConfig:
-    scene: str = "???"            # path to scene.yaml (or its folder), or 'demo'
+    scene: str = setting("???", check=bool, expect="a scene.yaml, its folder, or demo")  # path to scene.yaml (or its folder), or 'demo'
     out: Any = None               # run directory; in multirun, the sweep dir holds one per job
-    seed: int = 0
+    seed: int = setting(0, ge=0, le=2**63 - 1)
     quiet: bool = False           # no progress bars (batch logs)
     raster: RasterConfig = field(default_factory=RasterConfig)
     texture: TextureConfig = field(default_factory=TextureConfig)
@@ -51,6 +35,21 @@ class FeaturetexConfig:
     export: ExportConfig = field(default_factory=ExportConfig)
     diagnose: DiagnoseConfig = field(default_factory=DiagnoseConfig)
     report: bool = True           # write report.html (with turntable previews)
+
+
+@dataclass
+class LauncherSettings:
+    """What featuretex allows of the launcher settings it documents (`hydra.launcher.*`); the
+    launcher plugins' own schemas check the types."""
+
+    n_jobs: int = setting(-1, check=lambda v: v == -1 or v >= 1, expect="-1 (one job per core) or at least 1")
+    timeout_min: int = setting(240, ge=1)
+    cpus_per_task: int = setting(8, ge=1)
+    mem_gb: float = setting(16, gt=0)
+    tasks_per_node: int = setting(1, ge=1)
+    nodes: int = setting(1, ge=1)
+    array_parallelism: int = setting(64, ge=1)
+    max_num_timeout: int = setting(0, ge=0)
 
 
 def register() -> None:

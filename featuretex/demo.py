@@ -37,6 +37,7 @@ from featuretex.atomic import atomic_path, write_json
 from featuretex.scene.camera import Camera
 from featuretex.scene.colour import linear_to_srgb, srgb_to_linear, to_uint8
 from featuretex.scene.mesh import load_mesh, make_atlas, smooth_normals
+from featuretex.userdirs import user_cache_dir
 from featuretex.synth import (dent, fine_print_coverage, orbit_poses, render_views,
                               textured_mesh, write_scene)
 
@@ -873,7 +874,7 @@ def ensure_demo_scene() -> Path:
     committed = repo_demo_dir() / "scene" / "scene.yaml"
     if committed.is_file():
         return committed
-    cache = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "featuretex" / f"demo-{DEMO_VERSION}"
+    cache = user_cache_dir() / f"demo-{DEMO_VERSION}"
     manifest = cache / "scene" / "scene.yaml"
     if manifest.is_file():
         return manifest

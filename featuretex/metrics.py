@@ -21,7 +21,7 @@ import numpy as np
 from numba import njit, prange
 from scipy.ndimage import gaussian_filter
 
-from featuretex import compiled  # noqa: F401  (numba threading layer)
+from featuretex.compiled import CACHE   # numba settings, before any kernel is defined
 from featuretex.scene.colour import linear_to_srgb
 
 PSNR_CAP_DB = 100.0          # identical images score this instead of +inf (JSON has no inf)
@@ -134,7 +134,7 @@ def _shift_sse(render: np.ndarray, photo: np.ndarray, mask: np.ndarray, tile: in
     return sse, cnt * c
 
 
-@njit(parallel=True, cache=True, boundscheck=False)
+@njit(parallel=True, cache=CACHE, boundscheck=False)
 def _shift_sse_kernel(render, photo, mask, tile, radius, sse, cnt):  # pragma: no cover - compiled
     h, w, c = render.shape
     th, tw, s = sse.shape[0], sse.shape[1], sse.shape[2]

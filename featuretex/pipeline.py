@@ -33,19 +33,12 @@ from featuretex.raster.uvspace import TexelBuffer, rasterise_uv
 from featuretex.render import render_texture
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene, load_scene
+from featuretex.scene.locate import resolve_scene_path
 from featuretex.score import score_method
 from featuretex.stages import StageBook, key_of
 
 log = logging.getLogger("featuretex")
 HELDOUT_DIR = "heldout"
-
-
-def resolve_scene_path(scene: str) -> Path:
-    if scene == "demo":
-        from featuretex.demo import ensure_demo_scene
-
-        return ensure_demo_scene()
-    return Path(scene).expanduser()
 
 
 def _save_npz(path: Path, **arrays: np.ndarray) -> None:

@@ -6,6 +6,7 @@ selects a plugin by its registered name only; nothing named in a user's YAML is 
 
 from __future__ import annotations
 
+import importlib
 from importlib.metadata import entry_points
 from typing import Any
 
@@ -13,6 +14,8 @@ from featuretex.errors import InputError
 
 KINDS = ("decoders", "losses", "rasterisers", "exporters")
 _BUILTIN: dict[str, dict[str, str]] = {k: {} for k in KINDS}  # kind -> name -> "module:attr"
+# packages whose import registers the built-ins of a kind (light: they import no plugin code)
+_REGISTERED_BY = {"decoders": "featuretex.model", "exporters": "featuretex.export"}
 
 
 def register_builtin(kind: str, name: str, target: str) -> None:
@@ -22,6 +25,8 @@ def register_builtin(kind: str, name: str, target: str) -> None:
 
 def available(kind: str) -> dict[str, str]:
     """name -> "module:attr" for every plugin of `kind` (entry points override nothing built in)."""
+    if kind in _REGISTERED_BY:
+        importlib.import_module(_REGISTERED_BY[kind])
     found = {ep.name: ep.value for ep in entry_points(group=f"featuretex.{kind}")}
     found.update(_BUILTIN[kind])
     return found
@@ -36,8 +41,6 @@ def load(kind: str, name: str) -> Any:
         raise InputError(f"config: no {kind[:-1]} plugin named {name!r}; registered: "
                          f"{', '.join(sorted(table)) or 'none'}")
     module, _, attr = table[name].partition(":")
-    import importlib
-
     obj: Any = importlib.import_module(module)
     for part in attr.split("."):
         obj = getattr(obj, part)

@@ -16,8 +16,9 @@ and they name code that ships with featuretex or with an installed Hydra plugin.
 and refuses, with an InputError naming the file (or "command line") and the key:
 
 * `_target_`, `_call_`, `_args_`, `_partial_`, `_recursive_`, `_convert_` anywhere outside `hydra.`;
-* under `hydra.` (callbacks, launcher, sweeper): a `_target_` that is not a dotted name inside
-  `featuretex.` or `hydra_plugins.`, `_call_`, and the other keys beside a refused `_target_`;
+* under `hydra.` (callbacks, launcher, sweeper): a `_target_` that is not one of ALLOWED_TARGETS
+  (featuretex's batch index, the launchers its configs name, Hydra's own basic launcher and
+  sweeper), `_call_`, and the other keys beside a refused `_target_`;
 * any text value that spells one of those keys or builds a mapping from text (`oc.create`,
   `oc.decode` interpolations), which could smuggle one in;
 * `hydra.job.env_set` of variables that change what code a process loads (`LD_*`, `DYLD_*`,
@@ -25,7 +26,14 @@ and refuses, with an InputError naming the file (or "command line") and the key:
 * `pkg://` search paths outside `featuretex` / `hydra_plugins`, and `--experimental-rerun`
   (it loads a pickle, which can run anything).
 
-`check_output_dir(argv)` (also before Hydra, which creates the run folder and writes `.hydra/`
+`check_composed(cfg)` checks the configuration as Hydra composed it from all of that (so also what
+a batch file's defaults pull in), before Hydra instantiates anything: the same rule for every
+`_target_`; the run folder keys (`hydra.run.dir`, `hydra.sweep.dir`, `hydra.sweep.subdir`,
+`hydra.output_subdir`, `hydra.job.name`, `hydra.job.chdir`) keep featuretex's values, so the run
+folder is `out` and nothing else; log handlers are the standard library's and write inside the
+job's folder; a cluster launcher's job files stay in the sweep folder.
+
+`check_output_dir(folder)` (also before Hydra, which creates the run folder and writes `.hydra/`
 before any featuretex code runs, and reports a failure there as a traceback) makes sure the
 output folder can be created and written, raising the OSError of the first thing that fails.
 """
@@ -42,10 +50,22 @@ from typing import Any
 import yaml
 
 from featuretex.errors import InputError, input_error
+from featuretex.settings import shown
 
 INSTANTIATE_KEYS = ("_target_", "_call_", "_args_", "_partial_", "_recursive_", "_convert_")
-TRUSTED_TARGET = re.compile(r"^(featuretex|hydra_plugins)(\.[A-Za-z_][A-Za-z0-9_]*)+$")
-TRUSTED_PACKAGES = ("featuretex", "hydra_plugins")
+ALLOWED_TARGETS = frozenset({
+    "featuretex.batch.BatchIndex",
+    "hydra._internal.core_plugins.basic_launcher.BasicLauncher",
+    "hydra._internal.core_plugins.basic_sweeper.BasicSweeper",
+    "hydra_plugins.hydra_joblib_launcher.joblib_launcher.JoblibLauncher",
+    "hydra_plugins.hydra_submitit_launcher.submitit_launcher.LocalLauncher",
+    "hydra_plugins.hydra_submitit_launcher.submitit_launcher.SlurmLauncher",
+})
+TRUSTED_PACKAGES = ("featuretex", "hydra_plugins")   # config packages (pkg://) that may be searched
+# the run folder keys and their only values: the run folder is `out`
+RUN_FOLDER_KEYS = {"hydra.run.dir": "${out}", "hydra.sweep.dir": "${out}", "hydra.sweep.subdir": "${hydra.job.num}",
+                   "hydra.output_subdir": ".hydra", "hydra.job.name": "featuretex"}
+LOG_HANDLER_CLASSES = frozenset({"logging.StreamHandler", "logging.FileHandler", "logging.NullHandler"})
 _BUILDS_MAPPING = re.compile(r"\$\{\s*oc\.(create|decode)\s*:")
 _KEY_IN_TEXT = re.compile(r"(%s)['\"]?\s*:" % "|".join(INSTANTIATE_KEYS))
 _LOADER_ENV = re.compile(r"^(LD_|DYLD_|PYTHON)")
@@ -216,12 +236,11 @@ def _check_instantiate_key(key: str, siblings: dict, file: str) -> None:
                           hint="featuretex never builds objects named in config; choose plugins by their "
                           "registered name (e.g. raster.backend=embree)")
     target = siblings.get("_target_")
-    if not (isinstance(target, str) and TRUSTED_TARGET.match(target)):
-        shown = target if isinstance(target, str) and len(target) < 80 else type(target).__name__
-        raise input_error(file, f"'{name}' with _target_ {shown!r}, which is not inside "
-                          f"{' / '.join(p + '.' for p in TRUSTED_PACKAGES)}; refused", field=key,
-                          hint="Hydra callbacks, launchers and sweepers must come from featuretex or an "
-                          "installed Hydra plugin")
+    if not (isinstance(target, str) and target in ALLOWED_TARGETS):
+        raise input_error(file, f"'{name}' with _target_ {shown(target)}, which is not one of featuretex's own "
+                          "callbacks, launchers and sweepers; refused", field=key,
+                          hint="Hydra may build only featuretex's batch index, its launchers "
+                          "(hydra/launcher=pool, slurm, slurm_local) and Hydra's basic launcher and sweeper")
 
 
 def _check_text(key: str, text: str, file: str) -> None:
@@ -243,33 +262,81 @@ def _check_hydra_specials(parts: list[str], value: Any, file: str) -> None:
                           field=key, hint="prepare the cluster environment outside featuretex's config")
 
 
-def _out_override(argv: list[str]) -> tuple[str | None, bool]:
-    """(value of `out=` or None, multirun?) from the command line, parsed as Hydra parses it."""
-    from hydra._internal.utils import get_args_parser
-
+def check_output_dir(folder: Path) -> None:
+    """Create the run folder and write and delete a small file in it. Raises OSError (with filename
+    and strerror) on failure."""
+    folder = Path(folder).expanduser()
     try:
-        args, _ = get_args_parser().parse_known_args(argv)
-    except SystemExit:
-        return None, False
-    out = None
-    for key, value, _ in _overrides(args.overrides or []):
-        if key == "out" and isinstance(value, str):
-            out = value
-    return out, bool(args.multirun)
-
-
-def check_output_dir(argv: list[str]) -> None:
-    """Create the run folder named by `out=` (else Hydra's default parent, runs/ or multirun/) and
-    write and delete a small file in it. Raises OSError (with filename and strerror) on failure."""
-    out, multirun = _out_override(argv)
-    folder = Path(out if out else ("multirun" if multirun else "runs")).expanduser()
-    if "${" in str(folder):       # an interpolation: only Hydra can resolve it
-        return
-    folder.mkdir(parents=True, exist_ok=True)
-    try:
+        folder.mkdir(parents=True, exist_ok=True)
         with tempfile.NamedTemporaryFile(dir=folder, prefix=".featuretex-probe.") as f:
             f.write(b"\0" * 4096)
             f.flush()
             os.fsync(f.fileno())
     except OSError as e:
         raise OSError(e.errno, e.strerror or str(e), str(folder)) from None
+
+
+# ---------------------------------------------------------------------------------------------
+# the composed configuration
+# ---------------------------------------------------------------------------------------------
+COMPOSED = "configuration"   # the "file" named in messages about the composed configuration
+RECORDS = ("overrides", "help", "hydra_help", "runtime")  # text Hydra keeps about the run, never built from
+
+
+def check_composed(cfg: Any) -> None:
+    """Refuse a composed configuration (a DictConfig with its `hydra` node) that would make Hydra
+    build objects other than featuretex's own, or write outside the run folder (module doc)."""
+    from omegaconf import OmegaConf
+
+    tree = OmegaConf.to_container(cfg, resolve=False)
+    assert isinstance(tree, dict)
+    hydra = {k: v for k, v in tree.get("hydra", {}).items() if k not in RECORDS}
+    check_value("", {**tree, "hydra": hydra}, COMPOSED)
+    for key, want in RUN_FOLDER_KEYS.items():
+        got = _raw(tree, key)
+        if got != want:
+            raise input_error(COMPOSED, f"{shown(got)} refused: the run folder is set by out= only", field=key,
+                              hint=f"write out=DIR; featuretex keeps {key} at {want}")
+    if _raw(tree, "hydra.job.chdir"):
+        raise input_error(COMPOSED, "hydra.job.chdir=true would run the job inside its output folder; refused",
+                          field="hydra.job.chdir", hint="paths are read relative to where featuretex starts")
+    for part in ("job_logging", "hydra_logging"):
+        _check_logging(_raw(tree, f"hydra.{part}") or {}, f"hydra.{part}")
+    folder = _raw(tree, "hydra.launcher.submitit_folder")
+    if folder is not None and not _inside_interpolation(folder, "${hydra.sweep.dir}"):
+        raise input_error(COMPOSED, f"submitit_folder {shown(folder)} lies outside the sweep folder; refused",
+                          field="hydra.launcher.submitit_folder")
+
+
+def _raw(tree: Any, key: str) -> Any:
+    for part in key.split("."):
+        if not isinstance(tree, dict) or part not in tree:
+            return None
+        tree = tree[part]
+    return tree
+
+
+def _inside_interpolation(value: Any, root: str) -> bool:
+    """`value` is `root` or `root/<relative path without ..>`."""
+    if not isinstance(value, str) or not (value == root or value.startswith(root + "/")):
+        return False
+    return ".." not in Path(value[len(root):].lstrip("/")).parts
+
+
+def _check_logging(node: Any, where: str) -> None:
+    """Python's logging.config builds handlers from `class` and calls any `()` factory: only the
+    standard library's handlers, log files inside the job's output folder."""
+    if isinstance(node, dict):
+        for k, v in node.items():
+            key = f"{where}.{k}"
+            if k == "()":
+                raise input_error(COMPOSED, "a logging factory '()' would import and call an object; refused", field=key)
+            if k == "class" and v not in LOG_HANDLER_CLASSES and not str(v).startswith("logging.Formatter"):
+                raise input_error(COMPOSED, f"log handler class {shown(v)} refused", field=key,
+                                  hint=f"use one of {', '.join(sorted(LOG_HANDLER_CLASSES))}")
+            if k == "filename" and not _inside_interpolation(v, "${hydra.runtime.output_dir}"):
+                raise input_error(COMPOSED, f"log file {shown(v)} lies outside the run folder; refused", field=key)
+            _check_logging(v, key)
+    elif isinstance(node, list):
+        for i, v in enumerate(node):
+            _check_logging(v, f"{where}[{i}]")

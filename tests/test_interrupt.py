@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 import os
 import signal
+import socket
 import subprocess
 import sys
 import time
@@ -58,10 +59,11 @@ def _cmd(scene: Path, out: Path) -> list[str]:
     return [sys.executable, "-m", "featuretex.cli", f"scene={scene}", f"out={out}", *ARGS]
 
 
-def _run(scene: Path, out: Path) -> dict:
+def _run(scene: Path, out: Path, with_log: bool = False):
     r = subprocess.run(_cmd(scene, out), cwd=ROOT, env=ENV, capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr[-3000:]
-    return json.loads((out / "summary.json").read_text())
+    summary = json.loads((out / "summary.json").read_text())
+    return (summary, r.stderr) if with_log else summary
 
 
 def _figures(summary: dict) -> dict:
@@ -89,16 +91,25 @@ def test_sigkill_mid_fit_then_rerun_matches_uninterrupted_run(reference, tmp_pat
     deadline = time.monotonic() + 600
     while not ckpt.exists() and proc.poll() is None and time.monotonic() < deadline:
         time.sleep(0.01)
+    proc.send_signal(signal.SIGSTOP)   # holds its lock while stopped
+    # a second run into the same folder stops at once, naming the first
+    second = subprocess.run(_cmd(scene, out), cwd=ROOT, env=ENV, capture_output=True, text=True, timeout=600)
     proc.send_signal(signal.SIGKILL)
     proc.wait()
+    assert second.returncode == 2, second.stderr[-3000:]
+    lines = second.stderr.strip().splitlines()
+    assert len(lines) == 1 and f"PID {proc.pid} on host {socket.gethostname()}" in lines[0], second.stderr
     assert proc.returncode == -signal.SIGKILL, "the run ended before it could be killed mid-fit"
     assert ckpt.exists() and not done.exists(), "the kill did not land mid-fit"
     # what the kill left is whole: the checkpoint loads with tensor-only deserialisation
     state = torch.load(ckpt, weights_only=True)
     assert 0 < int(state["loop"]["step"]) < 60
     assert not (out / "summary.json").exists()
+    assert (out / ".featuretex.lock").exists()          # the killed run could not remove its lock
 
-    resumed = _run(scene, out)
+    resumed, log = _run(scene, out, with_log=True)
+    assert f"took over the lock of a run that ended without releasing it (PID {proc.pid}" in log
+    assert not (out / ".featuretex.lock").exists()
     assert _figures(resumed) == _figures(summary)
     for name in OUTPUTS:
         assert (out / name).read_bytes() == (whole / name).read_bytes(), name

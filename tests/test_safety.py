@@ -191,3 +191,28 @@ def test_cli_refuses_config_dir_with_target(tmp_path):
     p = _run(["-cd", str(tmp_path / "conf"), "+exp=bad", "scene=demo", f"out={tmp_path / 'out'}"], tmp_path)
     assert p.returncode == 2 and "bad.yaml" in p.stderr and "Traceback" not in p.stderr, p.stderr
     assert not marker.exists()
+
+
+def test_cli_refuses_what_only_the_composed_configuration_shows(tmp_path):
+    """A logging factory in a config file passes the file check (it is no _target_), but Python's
+    logging.config would call it: the check of the composed configuration refuses it."""
+    marker = tmp_path / "ran"
+    _write(tmp_path, "conf/exp/log.yaml", f"""\
+        # @package _global_
+        hydra:
+          job_logging:
+            handlers:
+              evil:
+                "()": os.makedirs
+                name: {marker}
+        """)
+    p = _run(["-cd", str(tmp_path / "conf"), "+exp=log", "scene=demo", f"out={tmp_path / 'out'}"], tmp_path)
+    assert p.returncode == 2 and "hydra.job_logging.handlers.evil.()" in p.stderr, p.stderr
+    assert len(p.stderr.strip().splitlines()) == 1 and not marker.exists() and not (tmp_path / "out").exists()
+
+
+def test_allow_list_is_exact(tmp_path):
+    """Any other name inside featuretex (or a Hydra plugin package) is refused, e.g. the atomic writer."""
+    for target in ("featuretex.atomic.write_text", "hydra_plugins.anything.Else", "featuretex.batch.BatchIndexX"):
+        with pytest.raises(InputError, match="refused"):
+            check_argv([f"+hydra.callbacks.w={{_target_:{target}}}"])

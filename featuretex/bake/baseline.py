@@ -8,20 +8,13 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
+from featuretex.bake.config import BaselineConfig
 from featuretex.bake.gutter import fill_texture
 from featuretex.bake.sampling import sample_image
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.loaded import Scene
 from featuretex.scene.manifest import View
-
-
-@dataclass
-class BaselineConfig:
-    min_cos: float = 0.1           # views seeing a texel more grazing than this are dropped
-    depth_tol_px: float = 2.0      # visibility: allowed depth gap, in pixel footprints
-    edge_erode_px: int = 2         # drop samples this close to a silhouette (background bleed)
-    gutter: int = 8                # texels of gutter padding (common practice: >= 4 for mipmaps)
 
 
 @dataclass

@@ -27,31 +27,19 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-from featuretex.bake.baseline import BaselineConfig, usable_mask, view_samples
+from featuretex.bake.baseline import usable_mask, view_samples
+from featuretex.bake.config import BakeConfig, BaselineConfig
 from featuretex.bake.gutter import fill_texture
 from featuretex.bake.sampling import sample_image
-from featuretex.errors import input_error
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.loaded import Scene
 from featuretex.scene.manifest import View
+from featuretex.settings import check_settings
 
-ROBUST_MODES = ("cauchy", "median", "mean")
 MAD_TO_SIGMA = 1.4826    # sigma of Gaussian noise = 1.4826 x median absolute deviation (Hampel 1974)
 CAUCHY_C = 2.3849        # Cauchy tuning constant for 95 % efficiency on Gaussian noise (Holland &
                          # Welsch 1977; value recalled from memory)
-
-
-@dataclass
-class BakeConfig:
-    residual: bool = True          # add the screen-space decoder's reprojected residual
-    robust: str = "cauchy"         # per-texel combination: cauchy (median + IRLS), median, mean
-    iterations: int = 3            # Cauchy reweighting passes after the median
-    scale_min: float = 0.005       # floor of the Cauchy scale, linear light (about 1/255 in sRGB mid-tones)
-    min_cos: float = 0.1           # views seeing a texel more grazing than this are dropped
-    depth_tol_px: float = 2.0      # visibility: allowed depth gap, in pixel footprints
-    edge_erode_px: int = 2         # drop samples this close to a silhouette (decoder padding, background)
-    gutter: int = 8                # texels of gutter padding; the pipeline sets it from texture.gutter
 
 
 @dataclass
@@ -74,12 +62,7 @@ class ResidualSamples:
 
 
 def _check(cfg: BakeConfig) -> None:
-    if cfg.robust not in ROBUST_MODES:
-        raise input_error("config", f"unknown robust mode {cfg.robust!r}; choose one of {', '.join(ROBUST_MODES)}",
-                          field="bake.robust")
-    if cfg.iterations < 0 or cfg.scale_min <= 0 or cfg.gutter < 0:
-        raise input_error("config", "bake.iterations and bake.gutter must be >= 0 and bake.scale_min > 0",
-                          field="bake")
+    check_settings(cfg, "bake.")   # for callers of the bake itself; the command line checked already
 
 
 def _sampling_config(cfg: BakeConfig) -> BaselineConfig:

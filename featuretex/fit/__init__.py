@@ -1,9 +1,9 @@
 """The learned fit: sampler, losses, optimisation loop, checkpoints, and renders of the result."""
 
-from featuretex.fit.config import FitConfig
-from featuretex.fit.loop import FitResult, fit_scene
-from featuretex.fit.render import (aligned_photo, render_decoder_residual, render_texel_head,
-                                   render_view)
+from featuretex.lazy import lazy_exports
 
-__all__ = ["FitConfig", "FitResult", "fit_scene", "render_view", "render_texel_head",
-           "render_decoder_residual", "aligned_photo"]
+_EXPORTS = {"FitConfig": "featuretex.fit.config", "FitResult": "featuretex.fit.loop", "fit_scene": "featuretex.fit.loop",
+            "render_view": "featuretex.fit.render", "render_texel_head": "featuretex.fit.render",
+            "render_decoder_residual": "featuretex.fit.render", "aligned_photo": "featuretex.fit.render"}
+__all__ = list(_EXPORTS)
+__getattr__ = lazy_exports(__name__, _EXPORTS)

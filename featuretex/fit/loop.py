@@ -400,8 +400,8 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
             else:
                 state.bad_evals += 1
         state.window = []
-        bar.set_postfix(f"loss {loss if loss is not None else float('nan'):.4f}"
-                        + (f", held-out {p:.2f} dB" if p is not None else ""))
+        shown = ([f"loss {loss:.4f}"] if loss is not None else []) + ([f"held-out {p:.2f} dB"] if p is not None else [])
+        bar.set_postfix(", ".join(shown))   # nothing rather than 'nan' before the first step
         if eval_hook is not None:
             t = time.perf_counter()
             eval_hook(state.step, model, fit_seconds())

@@ -17,12 +17,12 @@ import numpy as np
 import torch
 from numba import njit, prange
 
-from featuretex.compiled import match_torch_threads
+from featuretex.compiled import CACHE, match_torch_threads
 from featuretex.fit.losses import SSIM_K1, SSIM_K2, gaussian_kernel
 from featuretex.scene.colour import _A, _THRESH_LIN
 
 
-@njit(cache=True, inline="always")
+@njit(cache=CACHE, inline="always")
 def _encode(x: np.float32) -> tuple[np.float32, np.float32]:  # pragma: no cover - compiled
     """srgb_encode_leaky at one linear value, and its derivative (float32, as the torch reference)."""
     one, zero = np.float32(1.0), np.float32(0.0)
@@ -36,7 +36,7 @@ def _encode(x: np.float32) -> tuple[np.float32, np.float32]:  # pragma: no cover
     return np.float32(1.0 + _A) * p - np.float32(_A), np.float32((1.0 + _A) / 2.4) * p / x
 
 
-@njit(cache=True, inline="always")
+@njit(cache=CACHE, inline="always")
 def _sizes(img: np.ndarray, k: np.ndarray) -> tuple[int, int, int, int, int, int, int, int]:  # pragma: no cover
     """B, C, h, w of the images; taps n, radius r and the valid map's hv, wv of the window k."""
     B, C, h, w = img.shape
@@ -45,7 +45,7 @@ def _sizes(img: np.ndarray, k: np.ndarray) -> tuple[int, int, int, int, int, int
     return B, C, h, w, n, r, h - 2 * r, w - 2 * r
 
 
-@njit(cache=True, inline="always")
+@njit(cache=CACHE, inline="always")
 def _ssim_terms(st: np.ndarray, y: int, x: int, c1: np.float32, c2: np.float32):  # pragma: no cover
     """mx, my and the four factors A1, A2, B1, B2 of SSIM = A1 A2 / (B1 B2) at (y, x) of the moments
     st (5, hv, wv) = mx, my, mxx, myy, mxy."""
@@ -54,7 +54,7 @@ def _ssim_terms(st: np.ndarray, y: int, x: int, c1: np.float32, c2: np.float32):
     return mx, my, 2 * mx * my + c1, 2 * cxy + c2, mx * mx + my * my + c1, vx + vy + c2
 
 
-@njit(parallel=True, cache=True, boundscheck=False)
+@njit(parallel=True, cache=CACHE, boundscheck=False)
 def _forward(pred, targ, mask, k, c1, c2, pm, tm, dpm, dtm, stats, l1_part, ssim_part):  # pragma: no cover
     """Per plane (crop b, channel c) of the linear images pred, targ (B, C, h, w) float32: the
     masked encoded images pm, tm and the encoding's derivatives times the mask dpm, dtm (B, C, h, w);
@@ -102,7 +102,7 @@ def _forward(pred, targ, mask, k, c1, c2, pm, tm, dpm, dtm, stats, l1_part, ssim
         ssim_part[q] = ss
 
 
-@njit(parallel=True, cache=True, boundscheck=False)
+@njit(parallel=True, cache=CACHE, boundscheck=False)
 def _backward(mask, k, c1, c2, pm, tm, dpm, dtm, stats, a_l1, a_ssim, gpred, gtarg):  # pragma: no cover
     """gpred, gtarg (B, C, h, w) = d(a_l1 * sum|pm - tm| + a_ssim * sum S) / d(pred, targ), where
     dpm, dtm are the encoding's derivatives (times the mask)."""

@@ -19,10 +19,10 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from featuretex import compiled  # noqa: F401  (threading layer)
+from featuretex.compiled import CACHE   # numba settings, before any kernel is defined
 
 
-@njit(parallel=True, cache=True, boundscheck=False)
+@njit(parallel=True, cache=CACHE, boundscheck=False)
 def mip_forward(level0: np.ndarray, coarse: np.ndarray, uv: np.ndarray, lam: np.ndarray, sizes: np.ndarray,
                 bases: np.ndarray, top: int, out: np.ndarray, idx: np.ndarray, wts: np.ndarray) -> None:  # pragma: no cover - compiled
     """out (N, K) = trilinear samples; idx (N, 8) int64 pyramid rows, wts (N, 8) float32 their weights.
@@ -87,7 +87,7 @@ def mip_forward(level0: np.ndarray, coarse: np.ndarray, uv: np.ndarray, lam: np.
                         out[n, k] += w * coarse[rr - TT, k]
 
 
-@njit(parallel=True, cache=True, boundscheck=False)
+@njit(parallel=True, cache=CACHE, boundscheck=False)
 def mip_scatter(grad: np.ndarray, idx: np.ndarray, wts: np.ndarray, out: np.ndarray, lo: int,
                 parts: int) -> None:  # pragma: no cover - compiled
     """out (R, K) += the adjoint of mip_forward for the taps with rows in [lo, lo + R) of the pyramid
@@ -111,7 +111,7 @@ def mip_scatter(grad: np.ndarray, idx: np.ndarray, wts: np.ndarray, out: np.ndar
                     out[rr - lo, k] += w * grad[n, k]
 
 
-@njit(parallel=True, cache=True, boundscheck=False)
+@njit(parallel=True, cache=CACHE, boundscheck=False)
 def downsample(x: np.ndarray, out: np.ndarray) -> None:  # pragma: no cover - compiled
     """out (ceil(s/2), ceil(s/2), K) = 2x2 box means of x (s, s, K); for odd s the last row / column
     is replicated first, i.e. averaged alone (as avg_pool2d with ceil_mode=True and
@@ -128,7 +128,7 @@ def downsample(x: np.ndarray, out: np.ndarray) -> None:  # pragma: no cover - co
                 out[i, j, k] = (((x[r0, c0, k] + x[r1, c0, k]) + x[r0, c1, k]) + x[r1, c1, k]) * np.float32(0.25)
 
 
-@njit(parallel=True, cache=True, boundscheck=False)
+@njit(parallel=True, cache=CACHE, boundscheck=False)
 def upsample_add(fine: np.ndarray, coarse: np.ndarray, accumulate: bool) -> None:  # pragma: no cover - compiled
     """fine (s, s, K) (+)= the adjoint of `downsample` applied to coarse: a quarter of each coarse
     value to each of its 2x2 texels; for odd s the last row / column also takes its replica's.
