@@ -143,7 +143,7 @@ def _check_launcher(cfg: DictConfig) -> None:
     launcher = OmegaConf.select(cfg, "hydra.launcher") or {}
     for key in launcher:
         spec = field_spec(LauncherSettings, str(key))
-        if spec is not None:
+        if spec is not None and launcher[key] is not None:   # null: the plugin's own default
             check_value(f"hydra.launcher.{key}", launcher[key], *spec)
 
 
