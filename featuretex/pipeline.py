@@ -166,7 +166,7 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     t0 = time.perf_counter()
     fit = fit_scene(scene, gbuffers, base_tex, base_seen, cfg.fit, out, seed=cfg.seed, quiet=cfg.quiet,
                     config_hash=fit_key)
-    if fit.stopped == "loaded" and "fit" in book.records:
+    if fit.loaded and "fit" in book.records:
         book.timings["fit"] = book.records["fit"]["seconds"]
     else:
         book.timings["fit"] = round(float(fit.timings.get("fit_s", time.perf_counter() - t0)), 3)

@@ -11,7 +11,7 @@ from featuretex.export.png import write_texture_png
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
-from featuretex.scene.manifest import View
+from featuretex.scene.manifest import View, view_file_stem
 
 
 def score_mask(scene: Scene, view: View, gbuf: GBuffer) -> np.ndarray:
@@ -39,9 +39,9 @@ def score_method(scene: Scene, gbuffers: dict[str, GBuffer], renders: dict[str, 
         per_view[view.name] = s
         weights.append(int(mask.sum()))
         if image_dir is not None:
-            write_texture_png(image_dir / f"{view.name}_{method}.png",
+            write_texture_png(image_dir / f"{view_file_stem(view.name)}_{method}.png",
                               np.where(mask[..., None], linear_to_srgb(renders[view.name]), 0.0))
-            photo_png = image_dir / f"{view.name}_photo.png"
+            photo_png = image_dir / f"{view_file_stem(view.name)}_photo.png"
             if not photo_png.exists():
                 write_texture_png(photo_png, linear_to_srgb(photo))
     if not per_view:

@@ -23,6 +23,7 @@ import copy
 import dataclasses
 import difflib
 import math
+import reprlib
 import types
 import typing
 from collections.abc import Callable, Iterator
@@ -45,13 +46,19 @@ def setting(default: Any, *, ge: float | None = None, gt: float | None = None, l
     return dataclasses.field(default=default, metadata=meta)
 
 
-def shown(value: Any, limit: int = VALUE_CHARS) -> str:
-    """A user's value for a one-line message: repr() of strings, str() of the rest, cut to `limit`.
+_REPR = reprlib.Repr()
+_REPR.maxlevel, _REPR.maxstring, _REPR.maxother, _REPR.maxlong = 3, VALUE_CHARS, VALUE_CHARS, VALUE_CHARS
+_REPR.maxlist = _REPR.maxtuple = _REPR.maxdict = _REPR.maxset = 8
 
-    Large containers are not rendered whole: only their first items are looked at."""
-    if isinstance(value, (list, tuple)) and len(value) > limit:
-        value = list(value[:limit])
-    text = repr(value) if isinstance(value, str) else str(value)
+
+def shown(value: Any, limit: int = VALUE_CHARS) -> str:
+    """A user's value for a one-line message: repr() of text, str() of a number, at most `limit`
+    characters. Containers are shown by their first items only, never rendered whole: a value can
+    be huge (a YAML file of nested aliases expands to billions of items)."""
+    try:
+        text = str(value) if isinstance(value, (bool, float)) else _REPR.repr(value)
+    except ValueError:          # an integer too long to print
+        text = "a number of more than 4000 digits"
     text = " ".join(text.split())
     return text if len(text) <= limit else text[: limit - 3] + "..."
 

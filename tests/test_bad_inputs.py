@@ -37,7 +37,7 @@ from featuretex.errors import InputError
 from featuretex.scene.camera import Camera
 from featuretex.scene.images import decode_image, load_mask, load_photo
 from featuretex.scene.loaded import load_scene
-from featuretex.scene.manifest import parse_pose
+from featuretex.scene.manifest import parse_pose, view_file_stem
 from featuretex.scene.mesh import load_mesh
 
 W, H = 64, 48
@@ -239,6 +239,31 @@ def _save_garbage(rgb, p):
     p.write_bytes(b"this is not an image, just text that ends in .png\n" * 4)
 
 
+def _corrupt_png_data(rel: str) -> Callable[[Path], None]:
+    """Flip bytes inside the first IDAT chunk and write the chunk's CRC anew (PNG spec 1.2 §5.3), so
+    only the zlib stream is broken: what a bad sector or a bad copy does."""
+    def apply(folder: Path) -> None:
+        p = folder / rel
+        data = bytearray(p.read_bytes())
+        i = 8
+        while data[i + 4:i + 8] != b"IDAT":
+            i += 12 + int.from_bytes(data[i:i + 4], "big")
+        n = int.from_bytes(data[i:i + 4], "big")
+        for k in range(i + 8 + n // 2, i + 8 + n // 2 + 6):
+            data[k] ^= 0x5A
+        data[i + 8 + n:i + 12 + n] = zlib.crc32(bytes(data[i + 4:i + 8 + n])).to_bytes(4, "big")
+        p.write_bytes(bytes(data))
+    return apply
+
+
+def _alias_bomb(folder: Path) -> None:
+    """Nine levels of ten aliases each (about 1 kB): 10^9 values once expanded."""
+    lines = ["a0: &a0 [x, x, x, x, x, x, x, x, x, x]"]
+    lines += [f"a{k}: &a{k} [{', '.join([f'*a{k - 1}'] * 10)}]" for k in range(1, 9)]
+    p = folder / "scene.yaml"
+    p.write_text("\n".join(lines) + "\n" + p.read_text())
+
+
 @dataclass(frozen=True)
 class Case:
     break_it: Callable[[Path], None]
@@ -255,6 +280,8 @@ CASES: dict[str, Case] = {
     "yaml_syntax": Case(_text("views:", "views: [unclosed"), None, words="not valid YAML"),
     "yaml_top_level_list": Case(lambda f: (f / "scene.yaml").write_text("- a\n- b\n"), None, words="mapping"),
     "yaml_not_utf8": Case(lambda f: (f / "scene.yaml").write_bytes(b"format: \xff\xfe\n"), None, words="UTF-8"),
+    "yaml_alias_bomb": Case(_alias_bomb, None, words="anchors and aliases"),
+    "yaml_huge_value": Case(_set("unit", "furlong" * 2000), "unit", words="furlongfurlong"),
     "yaml_duplicate_key": Case(_text("    fx: 60.0", "    fx: 60.0\n    fx: 61.0"), None, words="appears twice"),
     "format_wrong": Case(_set("format", "some-other-format/2"), "format"),
     "unknown_top_key": Case(_set("colour_space", "srgb"), "colour_space", words="unknown key"),
@@ -279,6 +306,9 @@ CASES: dict[str, Case] = {
     "view_unknown_key": Case(_set("views.1.exposure", 1.5), "exposure", "v01", "unknown key"),
     "view_unknown_camera": Case(_set("views.1.camera", "cam9"), "camera", "v01", "cam9"),
     "view_duplicate_name": Case(_set("views.2.name", "v00"), "name", "v00", "duplicate"),
+    "view_names_share_a_file_name": Case(_edit(lambda d: (d["views"][1].update(name="side A"),
+                                                         d["views"][2].update(name="Side_a"))),
+                                         "name", "Side_a", "share file names"),
     "view_name_missing": Case(_edit(lambda d: d["views"][1].pop("name")), "views[1].name"),
     "view_holdout_not_bool": Case(_set("views.0.holdout", "maybe"), "holdout", "v00", "true or false"),
     "all_views_held_out": Case(_edit(lambda d: [v.update(holdout=True) for v in d["views"]]), "views[].holdout",
@@ -321,6 +351,8 @@ CASES: dict[str, Case] = {
     "image_truncated_jpeg": Case(lambda f: (_new_image("images/v00.jpg", 0, "image",
                                                        lambda rgb, p: Image.fromarray(rgb).save(p, quality=95))(f),
                                             _truncate("images/v00.jpg", 0.6)(f)), "image", "v00", "truncated"),
+    "image_png_corrupt_data": Case(_corrupt_png_data("images/v01.png"), "image", "v01", "broken data stream"),
+    "mask_png_corrupt_data": Case(_corrupt_png_data("masks/v02.png"), "mask", "v02", "broken data stream"),
     "mask_wrong_size": Case(_replace_image("masks/v00.png", _save_small_mask), "mask", "v00", "64x40"),
     "mask_empty": Case(_replace_image("masks/v03.png", _save_black_mask), "mask", "v03", "empty"),
     # --- mesh ---
@@ -333,6 +365,9 @@ CASES: dict[str, Case] = {
     "mesh_only_zero_area_faces": Case(_mesh_text("v 0 0 0\nv 1 0 0\nv 2 0 0\nf 1 2 3\nf 1 1 2\n"), "mesh",
                                       words="zero-area"),
     "mesh_uv_outside_unit_square": Case(_mesh_edit(_uv_edit("1.75 0.5")), "mesh", words="outside [0, 1]"),
+    "mesh_uv_all_identical": Case(_mesh_edit(lambda t: "\n".join("vt 0.5 0.5" if ln.startswith("vt ") else ln
+                                                                  for ln in t.splitlines()) + "\n"),
+                                  "mesh", words="cover no area"),
     "mesh_uv_nan": Case(_mesh_edit(_uv_edit("nan 0.5")), "mesh", words="NaN"),
     "mesh_face_index_out_of_range": Case(_mesh_text("v 0 0 0\nv 1 0 0\nv 0 1 0\nf 1 2 3\nf 1 2 99\n"), "mesh",
                                          words="broken.obj"),
@@ -430,6 +465,7 @@ def test_bad_input_is_refused_cleanly(name, matrix_runs):
     if case.field:
         assert f"field '{case.field}'" in msg, msg
     assert case.words in msg, msg
+    assert len(msg) < 400, f"{len(msg)} characters: a value is quoted whole"
     assert r.inputs_after == r.inputs_before, "an input file changed"
     assert r.cwd_after == [], f"written into the working folder: {r.cwd_after}"
     assert set(r.base_after) <= {"scene", "cwd", "out", "outside.png"}, r.base_after
@@ -552,6 +588,9 @@ def test_pose_off_by_rounding_is_accepted_as_nearest_rotation():
     assert np.linalg.det(pose[:3, :3]) == pytest.approx(1.0, abs=1e-12)
 
 
+ESCAPING_NAME = "../../ESCAPED"
+
+
 def _accepted_variants(folder: Path) -> None:
     """Grey, 16-bit RGB, palette and EXIF-rotated photos, an RGBA mask, quads and repeated faces."""
     d = _load(folder)
@@ -563,6 +602,8 @@ def _accepted_variants(folder: Path) -> None:
     exif[0x0112] = 8   # stored rotated 90 clockwise; upright = the camera's 64x48
     Image.fromarray(np.rot90(rgb[3], -1).copy()).save(folder / "images" / "v03.jpg", exif=exif, quality=95)
     d["views"][3]["image"] = "images/v03.jpg"
+    d["views"][3]["name"] = ESCAPING_NAME        # view names are labels, never paths
+    d["views"][0]["name"] = "/tmp/an absolute name"
     m = np.asarray(Image.open(folder / "masks" / "v01.png").convert("L"))
     Image.fromarray(np.dstack([np.full((H, W, 3), 90, np.uint8), m])).save(folder / "masks" / "v01.png")
     _save(folder, d)
@@ -583,9 +624,11 @@ def test_accepted_variants_run_end_to_end(good_scene, tmp_path):
     assert "Traceback" not in p.stderr + p.stdout
     assert (tmp_path / "out" / "summary.json").is_file()
     assert _digest(scene) == before and os.listdir(cwd) == []
+    assert sorted(os.listdir(tmp_path)) == ["cwd", "out", "scene"] and not Path("/tmp/an absolute name").exists()
+    assert (tmp_path / "out" / "heldout" / f"{view_file_stem(ESCAPING_NAME)}_photo.png").is_file()
     # the rotated JPEG came out upright: compare with Pillow's exif_transpose of the same file
     loaded = load_scene(scene / "scene.yaml")
-    v3 = loaded.view("v03")
+    v3 = loaded.view(ESCAPING_NAME)
     ref = _srgb_decode(np.asarray(ImageOps.exif_transpose(Image.open(v3.image)), np.float64) / 255.0)
     np.testing.assert_allclose(loaded.photo(v3), ref, atol=2e-6)
 

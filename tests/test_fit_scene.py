@@ -76,7 +76,7 @@ def test_fit_from_a_flat_start_reaches_35_db_on_heldout_views(tiny, tmp_path):
     # the same hash again loads the saved model instead of fitting
     again = fit_scene(scene, gbuffers, base.texture_lin, base.seen, cfg, tmp_path, seed=0, quiet=True,
                       config_hash="tiny")
-    assert again.stopped == "loaded"
+    assert again.loaded and again.stopped == res.stopped
     for (k, a), b in zip(res.model.state_dict().items(), again.model.state_dict().values()):
         assert torch.equal(a, b), k
 

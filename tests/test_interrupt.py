@@ -63,7 +63,7 @@ def _run(scene: Path, out: Path, with_log: bool = False):
     r = subprocess.run(_cmd(scene, out), cwd=ROOT, env=ENV, capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr[-3000:]
     summary = json.loads((out / "summary.json").read_text())
-    return (summary, r.stderr) if with_log else summary
+    return (summary, r.stdout + r.stderr) if with_log else summary   # log lines go to stdout
 
 
 def _figures(summary: dict) -> dict:
@@ -138,3 +138,102 @@ def test_sigkill_mid_export_leaves_no_half_file_and_rerun_matches(reference, tmp
     for name in OUTPUTS:
         assert (out / name).read_bytes() == (whole / name).read_bytes(), name
     assert not list(out.rglob("*.partial-*")), "the re-run removes what the killed writer left"
+
+
+# ---------------------------------------------------------------------------------------------
+# Damaged state in the run folder is thrown away (one line each) and computed again
+# ---------------------------------------------------------------------------------------------
+def _garbage(p: Path) -> None:
+    p.parent.mkdir(parents=True, exist_ok=True)
+    p.write_bytes(b"\x00\x13 not what it should be " * 40)
+
+
+def _truncate(p: Path) -> None:
+    data = p.read_bytes()
+    p.write_bytes(data[: len(data) // 2])
+
+
+def _wrong_torch_file(p: Path) -> None:
+    torch.save([torch.zeros(3), "a list, not a checkpoint"], p)   # loads fine with weights_only
+
+
+DAMAGES = {
+    # name: (what to do to a copy of the finished run folder, files the log must name)
+    "checkpoint_garbage_and_truncated_caches": (
+        lambda out: (_garbage(out / "fit" / "checkpoint.pt"), (out / "fit" / "model.pt").unlink(),
+                     _truncate(sorted((out / "cache" / "gbuffer").glob("*.npy"))[0]),
+                     _truncate(out / "stages" / "baseline.npz")),
+        lambda out: ["fit/checkpoint.pt", sorted((out / "cache" / "gbuffer").glob("*.npy"))[0].name,
+                     "stages/baseline.npz"]),
+    "checkpoint_of_the_wrong_type": (
+        lambda out: (_wrong_torch_file(out / "fit" / "checkpoint.pt"), (out / "fit" / "model.pt").unlink()),
+        lambda out: ["fit/checkpoint.pt"]),
+    "model_and_stage_record_garbage": (
+        lambda out: (_garbage(out / "fit" / "model.pt"), _garbage(out / "stages.json")),
+        lambda out: ["fit/model.pt", "stages.json"]),
+}
+
+
+@pytest.mark.parametrize("damage", sorted(DAMAGES))
+def test_damaged_run_folder_is_recomputed_and_matches(reference, tmp_path, damage):
+    import shutil
+
+    scene, whole, summary = reference
+    out = tmp_path / "run"
+    shutil.copytree(whole, out)
+    break_it, named = DAMAGES[damage]
+    names = named(out)
+    break_it(out)
+    resumed, log = _run(scene, out, with_log=True)
+    warned = [ln for ln in log.splitlines() if "does not read back" in ln]
+    for name in names:
+        assert sum(name in ln for ln in warned) == 1, (name, warned)
+    assert _figures(resumed) == _figures(summary)
+    assert resumed["fit"] == summary["fit"]
+    for name in OUTPUTS:
+        assert (out / name).read_bytes() == (whole / name).read_bytes(), name
+
+
+# Fills the disk the run writes to just before the fit's second checkpoint is written.
+FILLER = """
+import os, sys
+from pathlib import Path
+import featuretex.fit.checkpoint as ck
+filler, real, calls = Path(sys.argv[1]), ck.save, []
+def save(path, payload):
+    calls.append(path)
+    if Path(path).name == "checkpoint.pt" and len(calls) == 2:
+        fd = os.open(filler, os.O_WRONLY | os.O_CREAT)
+        try:
+            while True:
+                os.write(fd, b"\\0" * (1 << 16))
+        except OSError:
+            os.close(fd)
+    return real(path, payload)
+ck.save = save
+from featuretex.cli import main
+sys.argv = ["featuretex", *sys.argv[2:]]
+main()
+"""
+
+
+def test_disk_full_while_checkpointing_stops_with_one_line_and_resumes(reference, tmp_path):
+    from test_bad_inputs import tmpfs
+
+    scene, whole, summary = reference
+    with tmpfs(tmp_path / "disk", "size=48m") as disk:
+        out = disk / "run"
+        r = subprocess.run([sys.executable, "-c", FILLER, str(disk / "filler"), *_cmd(scene, out)[3:]], cwd=ROOT,
+                           env=ENV, capture_output=True, text=True, timeout=600)
+        assert r.returncode == 3, r.stderr[-3000:]
+        lines = [ln for ln in r.stderr.splitlines() if ln.strip()]
+        assert len(lines) == 1 and "checkpoint.pt" in lines[0] and "No space left" in lines[0], r.stderr
+        state = torch.load(out / "fit" / "checkpoint.pt", weights_only=True)   # the first one, whole
+        assert int(state["loop"]["step"]) == 10
+        assert not list(out.rglob("*.partial-*"))
+        (disk / "filler").unlink()                     # space freed: the same command resumes
+        resumed, log = _run(scene, out, with_log=True)
+        assert "resuming from" in log and "at step 10" in log
+        assert _figures(resumed) == _figures(summary)
+        for name in OUTPUTS:
+            assert (out / name).read_bytes() == (whole / name).read_bytes(), name

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
+import os
 from dataclasses import asdict
 from pathlib import Path
 from typing import Any
@@ -14,6 +16,8 @@ from featuretex.atomic import atomic_path
 from featuretex.errors import input_error
 from featuretex.fit.config import FitConfig
 from featuretex.model.decoders import resolve_precision
+from featuretex.settings import shown
+from featuretex.stages import discard
 
 FORMAT = "featuretex-fit/1"
 
@@ -35,26 +39,46 @@ def fit_hash(config_hash: str, cfg: FitConfig, seed: int) -> str:
     return hashlib.sha256(text.encode()).hexdigest()[:16]
 
 
+# what each kind of fit file must hold to be used
+CHECKPOINT_KEYS = ("format", "hash", "meta", "model", "optim", "sampler", "torch_rng", "loop")
+MODEL_KEYS = ("format", "hash", "meta", "model")
+
+
 def save(path: Path, payload: dict[str, Any]) -> None:
+    """Write atomically. torch writes through the Python file object, so a full disk raises the
+    OSError it is (torch's own file writer reports it as a RuntimeError without an errno)."""
     with atomic_path(path) as tmp:
-        torch.save(payload, tmp)
+        try:
+            with open(tmp, "wb") as f:
+                torch.save(payload, f)
+        except OSError as e:   # named after the file it was meant to be
+            raise OSError(e.errno, e.strerror or str(e), str(path)) from None
+        except RuntimeError as e:
+            full = os.statvfs(tmp.parent).f_bavail == 0
+            raise OSError(errno.ENOSPC if full else errno.EIO, os.strerror(errno.ENOSPC) if full else
+                          " ".join(str(e).split())[:160], str(path)) from None
 
 
-def load(path: Path) -> dict[str, Any]:
-    """Read a checkpoint or model file; a damaged file is an InputError naming it."""
+def load(path: Path, keys: tuple[str, ...] = MODEL_KEYS) -> dict[str, Any] | None:
+    """A checkpoint or model file, read with tensor-only deserialisation; None (said in one line)
+    when it does not read back or is not a featuretex fit file: the fit is computed again."""
     try:
-        return torch.load(path, map_location="cpu", weights_only=True)
-    except Exception as e:  # torch raises several types for truncated or foreign files
-        raise input_error(str(path), f"cannot read this fit file ({type(e).__name__}: {e})",
-                          hint="delete it to fit from scratch") from None
+        data = torch.load(path, map_location="cpu", weights_only=True)
+        if not isinstance(data, dict) or any(k not in data for k in keys) or data["format"] != FORMAT:
+            raise ValueError("not a featuretex fit file")
+        return data
+    except Exception as e:  # noqa: BLE001 (torch raises many types for truncated or foreign files)
+        discard("a fit file", path, e)
+        return None
 
 
-def load_checkpoint(path: Path, expected_hash: str) -> dict[str, Any]:
-    """The checkpoint at `path`; InputError when it belongs to another scene or configuration."""
-    ck = load(path)
-    if ck.get("format") != FORMAT or ck.get("hash") != expected_hash:
+def load_checkpoint(path: Path, expected_hash: str) -> dict[str, Any] | None:
+    """The checkpoint at `path` (None when damaged); InputError when it belongs to another scene or
+    configuration: resuming would mix two fits, and starting afresh would throw work away."""
+    ck = load(path, CHECKPOINT_KEYS)
+    if ck is not None and ck["hash"] != expected_hash:
         raise input_error(str(path), "this checkpoint was made for a different scene, fit configuration or "
-                          f"seed (its key {ck.get('hash')!r}, this run's {expected_hash!r}); refusing to resume",
+                          f"seed (its key {shown(ck['hash'])}, this run's {expected_hash!r}); refusing to resume",
                           field="fit", hint="restore the earlier settings to resume, or delete the file "
                           "(or choose another out=) to fit from scratch")
     return ck

@@ -8,6 +8,7 @@ consistent state), and a re-run with the same run directory resumes from it.
 
 from __future__ import annotations
 
+import json
 import logging
 import math
 import os
@@ -40,6 +41,7 @@ from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import rasterise_uv
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
+from featuretex.stages import DAMAGED, discard
 
 log = logging.getLogger("featuretex")
 TRAIN_LOG_EVERY = 10  # steps between entries of history["train"]
@@ -51,7 +53,8 @@ class FitResult:
     history: dict[str, Any]
     corrections: dict[str, np.ndarray]
     timings: dict[str, float]
-    stopped: str = "steps"     # "steps" | "plateau" | "loaded"
+    stopped: str = "steps"     # how the fit ended: "steps" | "plateau" (also when loaded from its files)
+    loaded: bool = False       # read from the run folder's fit files, not fitted in this run
     stats: dict[str, float] = field(default_factory=dict)  # this session: steps, pixels fitted / rendered
 
 
@@ -267,19 +270,17 @@ def _write_outputs(fit_dir: Path, key: str, model: SceneModel, scene: Scene, his
 
 
 def load_fitted(fit_dir: Path, saved: dict[str, Any]) -> FitResult:
+    """The finished fit from its files; raises (DAMAGED or RuntimeError) when one does not read back."""
     model = SceneModel.from_meta(saved["meta"])
     model.load_state_dict(saved["model"])
     model.eval()
-    import json
-
-    hist = json.loads((fit_dir / "history.json").read_text()) if (fit_dir / "history.json").is_file() else {}
+    hist = json.loads((fit_dir / "history.json").read_text())
     timings = dict(saved.get("timings_s", hist.pop("timings_s", {})))
     hist.pop("timings_s", None)
-    corr: dict[str, np.ndarray] = {}
-    if (fit_dir / "corrections.npz").is_file():
-        with np.load(fit_dir / "corrections.npz") as z:
-            corr = {k: z[k] for k in z.files}
-    return FitResult(model=model, history=hist, corrections=corr, timings=timings, stopped="loaded")
+    with np.load(fit_dir / "corrections.npz") as z:
+        corr = {k: z[k] for k in z.files}
+    return FitResult(model=model, history=hist, corrections=corr, timings=timings,
+                     stopped=str(hist.get("stopped", "steps")), loaded=True)
 
 
 class _StopRequest:
@@ -336,11 +337,12 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     torch.set_num_threads(cfg.threads or os.cpu_count() or 1)
     if model_path.is_file():
         saved = ckpt.load(model_path)
-        if saved.get("hash") == key:
-            return load_fitted(fit_dir, saved)
+        if saved is not None and saved["hash"] == key:
+            try:
+                return load_fitted(fit_dir, saved)
+            except (*DAMAGED, RuntimeError) as e:   # RuntimeError: tensors that do not fit the model
+                discard("the finished fit", fit_dir, e)
     t_start = time.perf_counter()
-    torch.manual_seed(seed)
-    rng = np.random.default_rng(seed)
 
     fitted, held = list(scene.manifest.fitted), list(scene.manifest.heldout)
     if not fitted:
@@ -358,22 +360,35 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     cached = cache_geometry(everyone, cfg.geometry_cache_gb)
     log.info("fit: crop geometry precomputed for %d of %d views", cached, len(everyone))
     sizes = [(v.camera.width, v.camera.height) for v in fitted]
-    model = build_model(cfg, fill_unmeasured(init_texture_lin, init_valid), names, sizes, reference, rng)
+
+    def start() -> tuple[SceneModel, torch.optim.Optimizer, CropSampler]:
+        """Model, optimiser and crop sampler at step 0 (seeded: the same every time)."""
+        torch.manual_seed(seed)
+        model = build_model(cfg, fill_unmeasured(init_texture_lin, init_valid), names, sizes, reference,
+                            np.random.default_rng(seed))
+        try:
+            sampler = CropSampler(train_views, cfg.crop, cfg.batch, seed)
+        except ValueError:
+            raise input_error(scene.file, "no fitted view shows the mesh inside its photo mask",
+                              field="views") from None
+        return model, make_optimiser(model, cfg), sampler
+
+    model, opt, sampler = start()
     log.info(describe(model))
-    opt = make_optimiser(model, cfg)
-    try:
-        sampler = CropSampler(train_views, cfg.crop, cfg.batch, seed)
-    except ValueError:
-        raise input_error(scene.file, "no fitted view shows the mesh inside its photo mask", field="views") from None
     state = LoopState()
-    if ck_path.is_file():
-        ck = ckpt.load_checkpoint(ck_path, key)
-        model.load_state_dict(ck["model"])
-        opt.load_state_dict(ck["optim"])
-        sampler.load_state_dict(ck["sampler"])
-        torch.set_rng_state(ck["torch_rng"])
-        state = LoopState.from_dict(ck["loop"])
-        log.info("fit: resuming from %s at step %d", ck_path, state.step)
+    ck = ckpt.load_checkpoint(ck_path, key) if ck_path.is_file() else None
+    if ck is not None:
+        try:
+            model.load_state_dict(ck["model"])
+            opt.load_state_dict(ck["optim"])
+            sampler.load_state_dict(ck["sampler"])
+            torch.set_rng_state(ck["torch_rng"])
+            state = LoopState.from_dict(ck["loop"])
+            log.info("fit: resuming from %s at step %d", ck_path, state.step)
+        except (*DAMAGED, RuntimeError) as e:   # well-formed file, contents that do not fit this fit
+            discard("the checkpoint", ck_path, e)
+            model, opt, sampler = start()
+            state = LoopState()
     t_prepare = time.perf_counter() - t_start
 
     timings = {"prepare_s": t_prepare, "train_s": 0.0, "eval_s": 0.0}

@@ -11,6 +11,7 @@ from featuretex.atomic import atomic_path
 from featuretex.raster.gbuffer import GBUFFER_DTYPE, GBuffer
 from featuretex.scene.manifest import View
 from featuretex.scene.mesh import SceneMesh
+from featuretex.stages import DAMAGED, discard
 
 CACHE_VERSION = "gbuffer-v1"
 
@@ -23,14 +24,26 @@ def cache_key(backend: str, mesh: SceneMesh, view: View) -> str:
     return h.hexdigest()[:24]
 
 
+def _read(path: Path) -> np.ndarray | None:
+    """The cached (H, W) buffer as a read-only memory map; None (said in one line) if it is damaged."""
+    try:
+        arr = np.load(path, mmap_mode="r")   # refuses a file shorter than its header says
+        if arr.dtype != GBUFFER_DTYPE or arr.ndim != 2:
+            raise ValueError(f"holds {arr.dtype} {arr.shape}, not a G-buffer")
+        return arr
+    except DAMAGED as e:
+        discard("a cached G-buffer", path, e)
+        return None
+
+
 def load_or_render(cache_dir: Path, backend, mesh: SceneMesh, view: View) -> tuple[GBuffer, bool]:
     """Return (G-buffer, was_cached). The buffer is a read-only memory map of the cache file."""
     path = Path(cache_dir) / f"{cache_key(backend.name, mesh, view)}.npy"
-    cached = path.is_file()
-    if not cached:
-        data = backend.render(view)
-        assert data.dtype == GBUFFER_DTYPE
-        with atomic_path(path) as tmp:
-            np.save(tmp, data)
-    arr = np.load(path, mmap_mode="r")
-    return GBuffer(view=view.name, data=arr), cached
+    arr = _read(path) if path.is_file() else None
+    if arr is not None:
+        return GBuffer(view=view.name, data=arr), True
+    data = backend.render(view)
+    assert data.dtype == GBUFFER_DTYPE
+    with atomic_path(path) as tmp:
+        np.save(tmp, data)
+    return GBuffer(view=view.name, data=np.load(path, mmap_mode="r")), False

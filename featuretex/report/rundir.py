@@ -14,6 +14,8 @@ from typing import Any
 
 import yaml
 
+from featuretex.scene.manifest import view_file_stem
+
 log = logging.getLogger("featuretex")
 
 METHODS = ("baseline", "baked", "neural")         # held-out renders, in the order they are shown
@@ -68,7 +70,7 @@ class RunDir:
         return list(names)
 
     def heldout_image(self, view: str, method: str) -> Path | None:
-        p = self.path / "heldout" / f"{view}_{method}.png"
+        p = self.path / "heldout" / f"{view_file_stem(view)}_{method}.png"
         return p if p.is_file() else None
 
     def view_scores(self, method: str, view: str) -> dict[str, float | None]:

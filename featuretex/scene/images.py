@@ -55,6 +55,9 @@ def _fail(manifest_file: str, view: str, fld: str, path: Path, what: str, hint: 
 
 
 def _orientation(im: Image.Image) -> int:
+    """EXIF orientation of an image whose pixels are loaded already: for a PNG, Pillow reads an
+    eXIf chunk after the pixel data by loading the pixels, and damage found there must not be
+    taken for a corrupt EXIF block."""
     try:
         o = int(im.getexif().get(0x0112, 1))
     except Exception:  # a corrupt EXIF block is not worth refusing the photo over: take it as upright
@@ -92,8 +95,8 @@ def _decode_wide(path: Path, manifest_file: str, view: str, fld: str) -> np.ndar
     return a
 
 
-def _open(path: Path, manifest_file: str, view: str, fld: str) -> tuple[Image.Image, int, bool]:
-    """Open and vet a file: (Pillow image, EXIF orientation, needs the 16-bit decoder)."""
+def _open(path: Path, manifest_file: str, view: str, fld: str) -> tuple[Image.Image, bool]:
+    """Open and vet a file: (Pillow image, needs the 16-bit decoder)."""
     try:
         im = Image.open(path)
     except (UnidentifiedImageError, OSError, ValueError, Image.DecompressionBombError) as e:
@@ -108,7 +111,7 @@ def _open(path: Path, manifest_file: str, view: str, fld: str) -> tuple[Image.Im
         im.close()
         raise _fail(manifest_file, view, fld, path, f"unsupported pixel format {im.mode!r}",
                     hint="save it as 8 or 16-bit RGB or grey PNG, JPEG or TIFF")
-    return im, _orientation(im), wide
+    return im, wide
 
 
 def _load(im: Image.Image, path: Path, manifest_file: str, view: str, fld: str) -> None:
@@ -121,9 +124,10 @@ def _load(im: Image.Image, path: Path, manifest_file: str, view: str, fld: str) 
 
 def verify_image(path: Path, manifest_file: str, view: str, fld: str) -> tuple[int, int]:
     """Decode the whole file once (damage shows), keep no pixels; -> upright (width, height)."""
-    im, orient, _ = _open(path, manifest_file, view, fld)
+    im, _ = _open(path, manifest_file, view, fld)
     with im:
         _load(im, path, manifest_file, view, fld)
+        orient = _orientation(im)
         w, h = im.size
     return (h, w) if orient in SWAPS_AXES else (w, h)
 
@@ -133,9 +137,10 @@ def decode_levels(path: Path, manifest_file: str, view: str, fld: str) -> np.nda
 
     C = 1 grey, 2 grey + alpha, 3 RGB, 4 RGBA. Raises InputError naming file, view and field.
     """
-    im, orient, wide = _open(path, manifest_file, view, fld)
+    im, wide = _open(path, manifest_file, view, fld)
     with im:
         _load(im, path, manifest_file, view, fld)
+        orient = _orientation(im)
         if wide:
             return np.ascontiguousarray(_ORIENT[orient](_decode_wide(path, manifest_file, view, fld)))
         up = ImageOps.exif_transpose(im)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -12,6 +13,7 @@ import numpy as np
 import yaml
 
 from featuretex.errors import input_error
+from featuretex.settings import shown
 from featuretex.scene.camera import MODELS, Camera
 
 FORMAT = "featuretex-scene/1"
@@ -106,9 +108,8 @@ def _file_digest(p: Path) -> str:
 
 
 def _short(value: Any, limit: int = 60) -> str:
-    """repr of a user value, cut to `limit` characters, so every message stays one readable line."""
-    r = repr(value)
-    return r if len(r) <= limit else r[: limit - 3] + "..."
+    """A user value in a message: at most `limit` characters, never built whole (a value can be huge)."""
+    return shown(value, limit)
 
 
 def _number(value: Any, file: str, *, view: str | None, fld: str, positive: bool = False) -> float:
@@ -324,6 +325,16 @@ def _no_duplicates(loader: _StrictLoader, node: yaml.MappingNode, deep: bool = F
 _StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _no_duplicates)
 
 
+def _no_aliases(text: str, file: str) -> None:
+    """Refuse YAML anchors and aliases (&a, *a): a few nested aliases in a kilobyte expand to
+    billions of values in anything that walks the document."""
+    for token in yaml.scan(text, Loader=_StrictLoader):
+        if isinstance(token, (yaml.AnchorToken, yaml.AliasToken)):
+            line = token.start_mark.line + 1
+            raise input_error(file, f"line {line}: YAML anchors and aliases ('&', '*') are not accepted in a scene "
+                              "file", hint="write every value out")
+
+
 def _load_yaml(path: Path, file: str) -> Any:
     try:
         size = path.stat().st_size
@@ -331,6 +342,7 @@ def _load_yaml(path: Path, file: str) -> Any:
             raise input_error(file, f"is {size / 2**20:.0f} MiB; a scene description is a few kB",
                               hint="is this the right file?")
         text = path.read_bytes().decode("utf-8")
+        _no_aliases(text, file)
         return yaml.load(text, Loader=_StrictLoader)  # noqa: S506 (a SafeLoader subclass)
     except yaml.YAMLError as e:
         first = " ".join(str(e).split()).replace('in "<unicode string>", ', "at ")[:200]
@@ -341,6 +353,27 @@ def _load_yaml(path: Path, file: str) -> Any:
         raise input_error(file, "nested too deeply to be a scene description") from None
     except OSError as e:
         raise input_error(file, f"cannot read: {e.strerror or e}") from None
+
+
+def view_file_stem(name: str) -> str:
+    """The file-name stem of outputs made per view (held-out renders): the view's name with every
+    character outside A-Z a-z 0-9 . _ - replaced by '_', no leading dot, at most 100 characters.
+    View names are labels; this keeps what is written inside the run folder whatever they hold."""
+    stem = re.sub(r"[^A-Za-z0-9._-]", "_", name)[:100]
+    return "_" + stem[1:] if stem.startswith(".") else stem or "_"
+
+
+def _check_file_stems(views: list[View], file: str) -> None:
+    """Two views whose names map to one file name (also on a case-insensitive file system)."""
+    seen: dict[str, str] = {}
+    for v in views:
+        stem = view_file_stem(v.name).lower()
+        if stem in seen:
+            raise input_error(file, f"its outputs would share file names with view {_short(seen[stem])} "
+                              f"('{view_file_stem(v.name)}')", view=v.name, field="name",
+                              hint="view names are compared as file names: letters A-Z, digits, '.', '_' and '-' "
+                              "count, other characters become '_', and case does not count")
+        seen[stem] = v.name
 
 
 def _parse_view(i: int, vd: Any, file: str, root: Path, cameras: dict[str, Camera], seen: set[str]) -> View:
@@ -425,6 +458,7 @@ def read_manifest(path: str | Path) -> Manifest:
                           hint="each view is a '- name: ...' entry under 'views:'")
     seen: set[str] = set()
     views = [_parse_view(i, vd, file, root, cameras, seen) for i, vd in enumerate(views_raw)]
+    _check_file_stems(views, file)
     n_fit = sum(not v.holdout for v in views)
     if n_fit == 0:
         raise input_error(file, "every view is held out; nothing to fit", field="views[].holdout",

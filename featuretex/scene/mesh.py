@@ -106,12 +106,27 @@ def load_mesh(path: Path, manifest_file: str, *, atlas_resolution: int = 1024) -
             raise input_error(manifest_file, f"mesh '{path.name}' has UVs outside [0, 1] "
                               f"(range {uv.min():.3g}..{uv.max():.3g}); tiled UVs cannot be baked",
                               field="mesh", hint="repack the UVs into [0, 1], or remove them for an automatic atlas")
+        _check_uv_area(uv, f, manifest_file, path.name)
     used = np.unique(f)
     generated = False
     if uv is None:
         v, f, uv = make_atlas(v[used], _reindex(f, used), atlas_resolution)
         generated = True
     return SceneMesh(vertices=v, faces=f, uv=uv, normals=smooth_normals(v, f), uv_generated=generated)
+
+
+MIN_UV_AREA = 1e-9   # of the unit square: less than a thousandth of one texel of a 1024 texture
+
+
+def _check_uv_area(uv: np.ndarray, faces: np.ndarray, manifest_file: str, name: str) -> None:
+    """UVs that cover no area (all equal, or all on a line) give every face one texel or none."""
+    t = uv[faces]                                                            # (F, 3, 2)
+    a, b = t[:, 1] - t[:, 0], t[:, 2] - t[:, 0]
+    area = 0.5 * np.abs(a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]).sum()
+    if not area > MIN_UV_AREA:
+        raise input_error(manifest_file, f"mesh '{name}' has UVs that cover no area of the texture (total "
+                          f"{area:.2g} of the unit square: every face maps to a point or a line)", field="mesh",
+                          hint="remove the UVs to let featuretex make an atlas, or unwrap the mesh again")
 
 
 def _reindex(f: np.ndarray, used: np.ndarray) -> np.ndarray:
