@@ -24,7 +24,7 @@ os.environ.setdefault("PYOPENGL_PLATFORM", "egl")
 from featuretex.bake.baseline import bake_baseline  # noqa: E402
 from featuretex.bake.neural import BakeConfig, bake_model, score_bake  # noqa: E402
 from featuretex.bake.seams import seam_ratio  # noqa: E402
-from featuretex.bake.texel_size import auto_texture_size  # noqa: E402
+from featuretex.bake.texel_size import auto_texture_size, median_pixel_footprint  # noqa: E402
 from featuretex.demo import ensure_demo_scene  # noqa: E402
 from featuretex.fit.config import FitConfig  # noqa: E402
 from featuretex.fit.loop import fit_scene  # noqa: E402
@@ -50,7 +50,7 @@ def main(argv: list[str] | None = None) -> int:
     scene = load_scene(args.scene or ensure_demo_scene())
     run = args.run or Path(tempfile.mkdtemp(prefix="featuretex-bench-bake-"))
     gbuffers, _ = build_gbuffers(scene, run / "cache" / "gbuffer", quiet=True)
-    size = auto_texture_size(scene, gbuffers)
+    size = auto_texture_size(scene.mesh, median_pixel_footprint(scene, gbuffers))
     texels = rasterise_uv(scene.mesh, size)
     base = bake_baseline(scene, gbuffers, texels)
 

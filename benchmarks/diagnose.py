@@ -30,7 +30,7 @@ REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
 from featuretex.bake.baseline import bake_baseline          # noqa: E402
-from featuretex.bake.texel_size import auto_texture_size    # noqa: E402
+from featuretex.bake.texel_size import auto_texture_size, median_pixel_footprint    # noqa: E402
 from featuretex.diagnose import DiagnoseConfig, diagnose, write_outputs  # noqa: E402
 from featuretex.diagnose.alignment import load_corrections  # noqa: E402
 from featuretex.raster.stage import build_gbuffers          # noqa: E402
@@ -105,7 +105,7 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
         work = Path(tmp)
         gbuffers, _ = build_gbuffers(scene, work / "cache" / "gbuffer", quiet=True)
-        size = auto_texture_size(scene, gbuffers)
+        size = auto_texture_size(scene.mesh, median_pixel_footprint(scene, gbuffers))
         texels = rasterise_uv(scene.mesh, size)
         corr, hist, tex, fit_s = from_run(args.run, scene, gbuffers, texels) if args.run else fit_here(scene, gbuffers, texels, work)
         t0 = time.perf_counter()

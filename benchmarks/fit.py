@@ -37,7 +37,7 @@ import torch  # noqa: E402
 
 from featuretex import metrics  # noqa: E402
 from featuretex.bake.baseline import bake_baseline  # noqa: E402
-from featuretex.bake.texel_size import auto_texture_size  # noqa: E402
+from featuretex.bake.texel_size import auto_texture_size, median_pixel_footprint  # noqa: E402
 from featuretex.demo import ensure_demo_scene  # noqa: E402
 from featuretex.fit import FitConfig, render_view  # noqa: E402
 from featuretex.fit.loop import run_fit, train_flops  # noqa: E402
@@ -117,7 +117,7 @@ def main() -> None:
     work = args.run or Path(tempfile.mkdtemp(prefix="featuretex-fitbench-"))
     scene = load_scene(ensure_demo_scene())
     gbuffers, _ = build_gbuffers(scene, work / "cache", quiet=True)
-    size = auto_texture_size(scene, gbuffers)
+    size = auto_texture_size(scene.mesh, median_pixel_footprint(scene, gbuffers))
     t = time.perf_counter()
     base = bake_baseline(scene, gbuffers, rasterise_uv(scene.mesh, size))
     baseline_s = time.perf_counter() - t

@@ -19,6 +19,7 @@ from featuretex.export.config import ExportConfig
 from featuretex.fit.config import FitConfig
 from featuretex.raster.config import RasterConfig
 from featuretex.settings import setting
+from featuretex.working_config import PhotoConfig
 
 
 @dataclass
@@ -28,6 +29,7 @@ class FeaturetexConfig:
     seed: int = setting(0, ge=0, le=2**63 - 1)
     quiet: bool = False           # no progress bars (batch logs)
     raster: RasterConfig = field(default_factory=RasterConfig)
+    photos: PhotoConfig = field(default_factory=PhotoConfig)
     texture: TextureConfig = field(default_factory=TextureConfig)
     baseline: BaselineConfig = field(default_factory=BaselineConfig)
     fit: FitConfig = field(default_factory=FitConfig)

@@ -1,6 +1,6 @@
 """The whole run, stage by stage in data-flow order; each stage resumes or skips when it can.
 
-    scene -> G-buffers -> baseline bake -> fit -> bake -> export -> diagnose -> score -> report
+    scene -> working photos -> G-buffers -> baseline bake -> fit -> bake -> export -> diagnose -> score -> report
 """
 
 from __future__ import annotations
@@ -17,7 +17,6 @@ from featuretex import plugins
 from featuretex.atomic import atomic_path, remove_partials, write_json
 from featuretex.bake.baseline import bake_baseline
 from featuretex.bake.neural import bake_model, score_bake
-from featuretex.bake.texel_size import auto_texture_size
 from featuretex.config import FeaturetexConfig
 from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.outputs import write_outputs
@@ -36,6 +35,8 @@ from featuretex.scene.loaded import Scene, load_scene
 from featuretex.scene.locate import resolve_scene_path
 from featuretex.score import score_method
 from featuretex.stages import StageBook, key_of
+from featuretex.threads import job_threads, use_threads
+from featuretex.working import WorkingPlan, plan_working, working_scene
 
 log = logging.getLogger("featuretex")
 HELDOUT_DIR = "heldout"
@@ -44,6 +45,30 @@ HELDOUT_DIR = "heldout"
 def _save_npz(path: Path, **arrays: np.ndarray) -> None:
     with atomic_path(path) as tmp:
         np.savez_compressed(tmp, **arrays)
+
+
+def stage_working(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook) -> tuple[Scene, WorkingPlan]:
+    """Texture size and per-view working windows (decided once, kept in stages/working.json), then
+    the scene with its photos reduced into cache/photos/ (files already there are reused)."""
+    t0 = time.perf_counter()
+    record = out / "stages" / "working.json"
+    tex = cfg.texture
+
+    def compute() -> WorkingPlan:
+        plan = plan_working(scene, cfg.photos, tex.size, tex.min_size, tex.max_size, cfg.raster.backend,
+                            quiet=cfg.quiet)
+        write_json(record, plan.to_json())
+        return plan
+
+    key = key_of(scene.content_hash, cfg.photos, tex.size, tex.min_size, tex.max_size, cfg.raster.backend)
+    plan = book.run("working", key, [record], compute, lambda: WorkingPlan.from_json(json.loads(record.read_text())))
+    working, written = working_scene(scene, plan, out / "cache" / "photos", quiet=cfg.quiet)
+    if written == 0 and "photos" in book.records:
+        book.timings["photos"] = book.records["photos"]["seconds"]
+    else:
+        book.timings["photos"] = round(time.perf_counter() - t0, 3)
+        book.records["photos"] = {"key": key, "seconds": book.timings["photos"]}
+    return working, plan
 
 
 def stage_gbuffers(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook, scene_key: str
@@ -146,16 +171,17 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     """Run every stage for one scene into `out`; return the summary written to summary.json."""
     t_start = time.perf_counter()
     check_fit_config(cfg.fit)   # before any stage runs
+    use_threads(cfg.fit.threads or job_threads())   # side by side in a batch, each run takes its share
     scene = load_scene(resolve_scene_path(cfg.scene))
     out.mkdir(parents=True, exist_ok=True)
     for leftover in remove_partials(out):  # a killed run's temporary files; never a finished output
         log.info("removed %s, left by an interrupted write", leftover)
     book = StageBook(out)
+    scene, plan = stage_working(scene, cfg, out, book)
+    size = plan.texture_size
     scene_key = key_of(scene.content_hash)
 
     gbuffers = stage_gbuffers(scene, cfg, out, book, scene_key)
-    size = cfg.texture.size or auto_texture_size(scene, gbuffers, min_size=cfg.texture.min_size,
-                                                 max_size=cfg.texture.max_size)
     texels = rasterise_uv(scene.mesh, size)
 
     base_key = key_of(scene_key, size, cfg.baseline, cfg.texture.gutter)
@@ -183,7 +209,7 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     heldout = score_all(scene, gbuffers, base_tex, fit.model, baked_tex, out, cfg.seed)
     book.timings["score"] = round(time.perf_counter() - t0, 3)
 
-    summary = build_summary(scene, cfg, size, heldout, diag, fit, book, time.perf_counter() - t_start)
+    summary = build_summary(scene, cfg, plan, heldout, diag, fit, book, time.perf_counter() - t_start)
     write_json(out / "summary.json", summary)
     if cfg.report:
         from featuretex.report.html import write_report
@@ -213,7 +239,7 @@ def _strip(d: dict) -> dict:
     return {k: v for k, v in d.items() if k != "per_view"}
 
 
-def build_summary(scene: Scene, cfg: FeaturetexConfig, size: int, heldout: dict, diag: dict, fit,
+def build_summary(scene: Scene, cfg: FeaturetexConfig, plan: WorkingPlan, heldout: dict, diag: dict, fit,
                   book: StageBook, total_s: float) -> dict:
     m = scene.manifest
     methods = ("baseline", "baked", "neural")
@@ -223,7 +249,7 @@ def build_summary(scene: Scene, cfg: FeaturetexConfig, size: int, heldout: dict,
         "reasons": diag["reasons"],
         "heldout": {k: _strip(heldout[k]) for k in methods},
         "areas": diag["areas"],
-        "timings_s": {**{k: book.timings.get(k) for k in ("gbuffer", "baseline", "fit", "bake", "export",
+        "timings_s": {**{k: book.timings.get(k) for k in ("photos", "gbuffer", "baseline", "fit", "bake", "export",
                                                           "diagnose", "score")},
                       "total": round(total_s, 3)},
         "bake_gap_db": heldout["bake_gap_db"],
@@ -240,7 +266,8 @@ def build_summary(scene: Scene, cfg: FeaturetexConfig, size: int, heldout: dict,
         "unit": m.unit,
         "up": scene.up.as_list(),
         "gltf_from_scene": output_frame(scene).tolist(),
-        "texture_size": size,
+        "texture_size": plan.texture_size,
+        "working_resolution": plan.summary(),
         "views": {"fitted": len(m.fitted), "heldout": len(m.heldout)},
         "seed": cfg.seed,
     }

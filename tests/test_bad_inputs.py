@@ -731,6 +731,8 @@ COMMANDS: dict[str, Command] = {
     "patch_even": Command(("diagnose.patch=4",), ("'diagnose.patch' = 4", "odd")),
     "export_format_unknown": Command(("export.formats=[fbx]",), ("'export.formats' = 'fbx'", "glb, obj")),
     "decoder_unknown": Command(("fit.decoder=huge",), ("'fit.decoder' = 'huge'", "texel-screen")),
+    "photos_scale_above_one": Command(("photos.scale=1.5",), ("'photos.scale' = 1.5", "(0, 1]")),
+    "photos_max_side_tiny": Command(("photos.max_side=10",), ("'photos.max_side' = 10", "64")),
     "launcher_unknown": Command(("hydra/launcher=bogus",), ("'hydra/launcher' = 'bogus'", "'pool'")),
     "launcher_no_jobs": Command(("-m", "hydra/launcher=pool", "hydra.launcher.n_jobs=0"),
                                 ("'hydra.launcher.n_jobs' = 0",)),

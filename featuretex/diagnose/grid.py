@@ -9,21 +9,11 @@ import warnings
 import numpy as np
 from scipy import ndimage
 
-from featuretex.bake.texel_size import median_pixel_footprint
+from featuretex.bake.texel_size import median_pixel_footprint, surface_per_uv, texel_edge
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.loaded import Scene
 from featuretex.scene.mesh import SceneMesh
-
-
-def surface_per_uv(mesh: SceneMesh) -> np.ndarray:
-    """(F,) float64: 3D area / UV area of each face (scene units^2 per unit of UV area); 0 if degenerate."""
-    tri = mesh.vertices[mesh.faces]
-    a3 = 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1)
-    uvt = mesh.uv[mesh.faces]
-    e1, e2 = uvt[:, 1] - uvt[:, 0], uvt[:, 2] - uvt[:, 0]
-    auv = 0.5 * np.abs(e1[:, 0] * e2[:, 1] - e1[:, 1] * e2[:, 0])
-    return np.where(auv > 1e-20, a3 / np.maximum(auv, 1e-20), 0.0)
 
 
 def texel_areas(mesh: SceneMesh, texels: TexelBuffer) -> np.ndarray:
@@ -33,16 +23,6 @@ def texel_areas(mesh: SceneMesh, texels: TexelBuffer) -> np.ndarray:
     v = texels.valid
     out[v] = ratio[texels.tri[v]] / texels.size ** 2
     return out
-
-
-def texel_edge(mesh: SceneMesh, size: int) -> float:
-    """Mean edge of a texel on the surface for a `size` x `size` texture, scene units."""
-    ratio = surface_per_uv(mesh)
-    uvt = mesh.uv[mesh.faces]
-    e1, e2 = uvt[:, 1] - uvt[:, 0], uvt[:, 2] - uvt[:, 0]
-    auv = 0.5 * np.abs(e1[:, 0] * e2[:, 1] - e1[:, 1] * e2[:, 0])
-    a3, au = float((ratio * auv).sum()), float(auv.sum())
-    return math.sqrt(a3 / au) / size if au > 0 else float("nan")
 
 
 def footprint_ratio(scene: Scene, gbuffers: dict[str, GBuffer], size: int) -> float:

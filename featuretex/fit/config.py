@@ -51,7 +51,7 @@ class FitConfig:
     plateau: int = setting(0, ge=0)            # stop after this many evals without training-loss gain (0 = never)
     plateau_tol: float = setting(1e-3, ge=0, lt=1)  # relative loss gain that counts as progress
     geometry_cache_gb: float = setting(1.0, ge=0)  # memory for precomputed crop geometry (61 B per object-box pixel; faster steps, same result)
-    threads: int = setting(0, ge=0, le=4096)   # torch threads; 0 = all cores (fixed per run for determinism)
+    threads: int = setting(0, ge=0, le=4096)   # threads of every pool; 0 = this run's share of the cores (fixed per run for determinism)
     reference_view: str = ""                   # view held at identity colour; "" = first fitted view
 
 

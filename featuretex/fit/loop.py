@@ -11,7 +11,6 @@ from __future__ import annotations
 import json
 import logging
 import math
-import os
 import signal
 import threading
 import time
@@ -34,6 +33,7 @@ from featuretex.fit.render import render_viewdata
 from featuretex.fit.sampler import CropSampler, assemble, warped_targets
 from featuretex.fit.viewdata import ViewData, mesh_tables, prepare_view
 from featuretex.model.corrections import ViewCorrections, grid_shape
+from featuretex.threads import job_threads
 from featuretex.model.decoders import parameter_count, resolve_precision
 from featuretex.model.scene_model import SceneModel
 from featuretex.progress import Progress
@@ -334,7 +334,7 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     model_path, ck_path = fit_dir / "model.pt", fit_dir / "checkpoint.pt"
     # the same thread count whether fitting or loading: later stages render with it, and torch's
     # float sums depend on how work is split between threads
-    torch.set_num_threads(cfg.threads or os.cpu_count() or 1)
+    torch.set_num_threads(cfg.threads or job_threads())
     if model_path.is_file():
         saved = ckpt.load(model_path)
         if saved is not None and saved["hash"] == key:

@@ -20,9 +20,14 @@ PHOTO_CACHE_BYTES = 1 << 30  # decoded photos kept in memory; older ones are dec
 
 @dataclass
 class Scene:
+    """manifest: the views the run works on. After featuretex.working, their photos, masks and
+    cameras are the working images (cropped, reduced) and `source` holds the manifest as written."""
+
     manifest: Manifest
     mesh: SceneMesh
     photo_cache_bytes: int = PHOTO_CACHE_BYTES
+    source: Manifest | None = None          # the scene as written, when `manifest` is derived from it
+    content_key: str | None = None          # content hash of a derived scene (else the manifest's)
     _photos: OrderedDict[str, np.ndarray] = field(default_factory=OrderedDict, repr=False)
 
     @property
@@ -60,14 +65,19 @@ class Scene:
         """(H, W) bool object mask from the mask file, or None when the view has none."""
         return load_mask(view.mask, self.file, view.name, (view.camera.width, view.camera.height))
 
+    @property
+    def original(self) -> Manifest:
+        """The manifest as written (original photos and cameras)."""
+        return self.source or self.manifest
+
     @cached_property
     def up(self) -> UpAxis:
         """The scene's up direction: given in scene.yaml, or estimated from the cameras."""
-        return scene_up(self.manifest)
+        return scene_up(self.original)
 
     @cached_property
     def content_hash(self) -> str:
-        return self.manifest.content_hash()
+        return self.content_key or self.manifest.content_hash()
 
 
 def load_scene(path: str | Path) -> Scene:

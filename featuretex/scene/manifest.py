@@ -6,6 +6,7 @@ import hashlib
 import math
 import re
 from dataclasses import dataclass, field
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -95,13 +96,20 @@ class Manifest:
         """Hash of the manifest text plus the bytes of every file it names."""
         h = hashlib.sha256(self.path.read_bytes())
         for p in [self.mesh] + [v.image for v in self.views] + [v.mask for v in self.views if v.mask]:
-            h.update(_file_digest(p).encode())
+            h.update(file_digest(p).encode())
         return h.hexdigest()[:16]
 
 
-def _file_digest(p: Path) -> str:
+def file_digest(p: Path) -> str:
+    """sha256 of a file's bytes, hex; remembered per (path, size, modification time)."""
+    st = p.stat()
+    return _digest(str(p), st.st_size, st.st_mtime_ns)
+
+
+@lru_cache(maxsize=4096)
+def _digest(path: str, size: int, mtime_ns: int) -> str:
     h = hashlib.sha256()
-    with open(p, "rb") as f:
+    with open(path, "rb") as f:
         for chunk in iter(lambda: f.read(1 << 20), b""):
             h.update(chunk)
     return h.hexdigest()
