@@ -67,13 +67,27 @@ class _Lazy:
         return (self.make(k) for k in range(self.n))
 
 
+def scan_with_uv(work: Path, cfg) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The scan's vertices, faces and xatlas uv (the atlas of 400k faces takes minutes: kept in `work`)."""
+    from featuretex.demo import scan_jug
+    from featuretex.scene.mesh import make_atlas
+
+    path = work / f"scan_{cfg.seed}_{'_'.join(str(v) for v in SCAN.values()).replace(' ', '')}.npz"
+    if path.is_file():
+        with np.load(path) as z:
+            return z["v"], z["f"], z["uv"]
+    scan, _ = scan_jug(cfg)
+    av, af, auv = make_atlas(np.asarray(scan.vertices), np.asarray(scan.faces), cfg.atlas)
+    np.savez(path, v=av, f=af, uv=auv)
+    return av, af, auv
+
+
 def generate(folder: Path, n_views: int, width: int, height: int, seed: int = 7) -> Path:
     """folder/scene.yaml of the shoot (made once; a marker file records the parameters)."""
     from PIL import Image
 
-    from featuretex.demo import DemoConfig, paint_albedo, scan_jug, true_jug
+    from featuretex.demo import DemoConfig, paint_albedo, true_jug
     from featuretex.scene.camera import Camera
-    from featuretex.scene.mesh import make_atlas
     from featuretex.synth import orbit_poses, render_views, textured_mesh, write_scene
 
     params = {"views": n_views, "width": width, "height": height, "seed": seed, "scan": SCAN, "truth": TRUTH}
@@ -85,8 +99,7 @@ def generate(folder: Path, n_views: int, width: int, height: int, seed: int = 7)
     cfg = DemoConfig(n_views=n_views, width=width, height=height, focal=FOCAL_PER_HEIGHT * height, seed=seed,
                      **SCAN, **TRUTH)
     truth = true_jug(cfg, Image.fromarray(paint_albedo(cfg.texture, seed), "RGB"))
-    scan, _ = scan_jug(cfg)
-    av, af, auv = make_atlas(np.asarray(scan.vertices), np.asarray(scan.faces), cfg.atlas)
+    av, af, auv = scan_with_uv(folder.parent, cfg)
     print(f"generate: truth {len(truth.faces)} faces, scan {len(af)} faces with uv "
           f"({time.perf_counter() - t0:.0f} s)", flush=True)
     cam = Camera("body", "pinhole", width, height, cfg.focal, cfg.focal, (width - 1) / 2, (height - 1) / 2)
