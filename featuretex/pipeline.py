@@ -26,6 +26,7 @@ from featuretex.fit.checkpoint import result_knobs
 from featuretex.fit.config import check_fit_config
 from featuretex.fit.loop import fit_scene
 from featuretex.fit.render import render_view
+from featuretex.inferred import inferred_items
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import TexelBuffer, rasterise_uv
@@ -210,6 +211,8 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     book.timings["score"] = round(time.perf_counter() - t0, 3)
 
     summary = build_summary(scene, cfg, plan, heldout, diag, fit, book, time.perf_counter() - t_start)
+    summary["inferred"] = inferred_items(scene, plan.texture_size, bool(cfg.texture.size), summary)
+    summary["warnings"] = list(scene.warnings)
     write_json(out / "summary.json", summary)
     if cfg.report:
         from featuretex.report.html import write_report

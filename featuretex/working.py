@@ -247,6 +247,6 @@ def working_scene(scene: Scene, plan: WorkingPlan, cache_dir: Path, *, quiet: bo
             p.unlink(missing_ok=True)
     man = scene.original
     derived = Scene(manifest=dataclasses.replace(man, views=tuple(views)), mesh=scene.mesh,
-                    photo_cache_bytes=scene.photo_cache_bytes, source=man,
+                    photo_cache_bytes=scene.photo_cache_bytes, source=man, warnings=scene.warnings,
                     content_key=key_of(CACHE_VERSION, man.content_hash(), plan.to_json()))
     return derived, written

@@ -110,6 +110,30 @@ def _pose(i: int, fn: Callable[[np.ndarray], np.ndarray]) -> Callable[[Path], No
     return _edit(edit)
 
 
+def _all_poses(fn: Callable[[np.ndarray], np.ndarray]) -> Callable[[Path], None]:
+    def edit(d: dict) -> None:
+        for v in d["views"]:
+            m = np.eye(4)
+            m[:3] = np.array(v["world_to_camera"], float)
+            v["world_to_camera"] = fn(m)[:3].tolist()
+    return _edit(edit)
+
+
+def _scale_obj(k: float) -> Callable[[str], str]:
+    """Every OBJ vertex position times k (the mesh written in another unit than the poses)."""
+    def edit(t: str) -> str:
+        return "\n".join(" ".join(["v"] + [repr(float(x) * k) for x in ln.split()[1:4]]) if ln.startswith("v ")
+                         else ln for ln in t.splitlines()) + "\n"
+    return edit
+
+
+def _each_mask(fn: Callable[[np.ndarray], np.ndarray]) -> Callable[[Path], None]:
+    def apply(folder: Path) -> None:
+        for p in sorted((folder / "masks").glob("*.png")):
+            Image.fromarray(fn(np.asarray(Image.open(p).convert("L"))).astype(np.uint8), "L").save(p)
+    return apply
+
+
 def _rot_y(deg: float) -> np.ndarray:
     a = np.radians(deg)
     r = np.eye(4)
@@ -291,7 +315,15 @@ CASES: dict[str, Case] = {
     "views_empty": Case(_set("views", []), "views"),
     "cameras_not_mapping": Case(_set("cameras", ["cam0"]), "cameras"),
     # --- cameras ---
-    "camera_unknown_key": Case(_set("cameras.cam0.focal_mm", 35), "focal_mm", words="unknown key"),
+    "camera_unknown_key": Case(_set("cameras.cam0.focal_length", 35), "focal_length", words="unknown key"),
+    "camera_focal_given_twice": Case(_edit(lambda d: d["cameras"]["cam0"].update(focal_mm=35, sensor_width_mm=36)),
+                                     "cameras.cam0.fx/fy/focal_mm/sensor_width_mm", words="one way only"),
+    "camera_focal_mm_as_fx": Case(_edit(lambda d: d["cameras"]["cam0"].update(fx=4.5, fy=4.5)), "cameras.cam0.fx",
+                                  words="focal_mm: 4.5"),
+    "camera_sensor_width_in_metres": Case(_edit(lambda d: (d["cameras"]["cam0"].pop("fx"), d["cameras"]["cam0"].pop("fy"),
+                                                            d["cameras"]["cam0"].update(focal_mm=35, sensor_width_mm=0.036))),
+                                          "cameras.cam0.focal_mm/sensor_width_mm", words="field of view"),
+    "camera_axes_unknown": Case(_set("cameras.cam0.axes", "blender"), "cameras.cam0.axes", words="blender"),
     "camera_width_text": Case(_set("cameras.cam0.width", "64"), "cameras.cam0.width", words="'64'"),
     "camera_fx_zero": Case(_set("cameras.cam0.fx", 0.0), "cameras.cam0.fx", words="> 0"),
     "camera_fy_list": Case(_set("cameras.cam0.fy", [60.0]), "cameras.cam0.fy", words="expected a number"),
@@ -332,6 +364,20 @@ CASES: dict[str, Case] = {
                               "world_to_camera", "v00", "last row"),
     "camera_behind_mesh": Case(_pose(2, lambda m: _rot_y(180) @ m), "world_to_camera", "v02", "behind"),
     "camera_looks_away": Case(_pose(2, lambda m: _rot_y(90) @ m), "world_to_camera", "v02", "looks away"),
+    "view_pose_given_twice": Case(_edit(lambda d: d["views"][1].update(
+                                      camera_to_world=[list(r) for r in d["views"][1]["world_to_camera"]])),
+                                  "world_to_camera/camera_to_world", "v01", "one way only"),
+    # --- the scene as a whole (featuretex.scene.sanity) ---
+    "poses_in_opengl_axes": Case(_all_poses(lambda m: np.diag([1.0, -1.0, -1.0, 1.0]) @ m), "world_to_camera", "v00",
+                                 "'axes: opengl' in camera 'cam0'"),
+    "poses_inverted": Case(_all_poses(np.linalg.inv), "world_to_camera", "v00", "under 'camera_to_world'"),
+    "mesh_in_millimetres": Case(_mesh_edit(_scale_obj(1000.0)), "world_to_camera", "v00", "different units"),
+    "mesh_in_kilometres": Case(_mesh_edit(_scale_obj(0.001)), "world_to_camera", "v00", "different units"),
+    "focal_too_short_for_masks": Case(_edit(lambda d: d["cameras"]["cam0"].update(fx=20.0, fy=20.0)),
+                                      "world_to_camera", "v00", "focal_mm"),
+    "masks_inverted": Case(_each_mask(lambda m: 255 - m), "mask", "v00", "invert the masks"),
+    "images_point_at_masks": Case(_edit(lambda d: [v.update(image=v["mask"]) for v in d["views"]]), "image", "v00",
+                                  "same pixels as its mask"),
     # --- paths ---
     "image_missing": Case(lambda f: (f / "images" / "v01.png").unlink(), "image", "v01", "not found"),
     "mask_missing": Case(lambda f: (f / "masks" / "v02.png").unlink(), "mask", "v02", "not found"),

@@ -229,3 +229,23 @@ def test_handle_ends_stay_buried_in_the_wall(res):
     ring = res[1] + 1
     for end in (slice(0, ring), slice((res[0] - 1) * ring, res[0] * ring)):
         assert np.all(r[end] < r_out[end] - 0.001)
+
+
+@needs_assets
+def test_demo_glb_stands_upright_at_22_cm(tmp_path):
+    """The demo's model.glb as a glTF viewer places it (world space after node transforms, computed
+    by trimesh's glTF loader): 22 cm along +Y, the jug's foot at the bottom."""
+    from featuretex.export.gltf import gltf_from_scene, write_glb
+    from featuretex.export.png import encode_texture_png
+    from featuretex.scene.up import scene_up
+
+    man = read_manifest(ASSETS / "scene" / "scene.yaml")
+    mesh = load_mesh(man.mesh, "scene.yaml")
+    up = scene_up(man)
+    assert up.estimated and np.array_equal(up.vector, [0.0, 0.0, 1.0]), up.detail   # the turntable's axis
+    path = write_glb(tmp_path / "model.glb", mesh, encode_texture_png(np.zeros((8, 8, 3))),
+                     gltf_from_scene=gltf_from_scene(up.vector, man.unit_m))
+    world = trimesh.load(path, force="scene").to_geometry().vertices
+    assert abs(np.ptp(world[:, 1]) - 0.220) < 0.002
+    foot = np.argmin(mesh.vertices[:, 2])                   # lowest point of the jug in the scene
+    assert world[foot, 1] == pytest.approx(world[:, 1].min(), abs=1e-6)

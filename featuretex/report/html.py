@@ -1,6 +1,6 @@
 """report.html: one self-contained page per run (images inlined as data URIs, no external requests).
 
-Order of the page: verdict and reasons; held-out views side by side; error map with legend and the
+Order of the page: verdict and reasons; warnings and what the run assumed; held-out views side by side; error map with legend and the
 worst regions; turntable of the exported model; fit curves; textures; timings; exact config; what
 this run did not produce. Each section shows what exists and says plainly what is missing.
 """
@@ -342,6 +342,24 @@ def config_html(run: RunDir) -> str:
     return f'<section id="config"><h2>Configuration</h2>{cmd}{full}</section>'
 
 
+def assumptions_html(run: RunDir) -> str:
+    """summary.json's warnings (suspicious inputs) and inferred items (what the run decided)."""
+    warnings = [w for w in run.summary.get("warnings") or [] if isinstance(w, str)]
+    inferred = [i for i in run.summary.get("inferred") or [] if isinstance(i, dict)]
+    if not warnings and not inferred:
+        return ""
+    parts = []
+    if warnings:
+        parts.append('<p class="note">Warnings: evidence against a few views only, so the run went on. '
+                     'Check these inputs.</p><ul class="missing">'
+                     + "".join(f"<li>{esc(w)}</li>" for w in warnings) + "</ul>")
+    if inferred:
+        parts.append('<p class="note">Decided by this run (not given in the scene file):</p><ul>'
+                     + "".join(f"<li><b>{esc(str(i.get('what', '')))}</b>: {esc(str(i.get('detail', '')))}</li>"
+                               for i in inferred) + "</ul>")
+    return f'<section id="assumptions"><h2>Warnings and assumptions</h2>{"".join(parts)}</section>'
+
+
 def missing_html(run: RunDir) -> str:
     gone = run.missing()
     items = "".join(f"<li><code>{esc(f)}</code>: the {esc(st)} stage has not written it, so this page lacks "
@@ -356,7 +374,8 @@ def missing_html(run: RunDir) -> str:
 # page
 # ---------------------------------------------------------------------------------------------
 SECTIONS: tuple[tuple[str, Callable[[RunDir], str]], ...] = (
-    ("header", header_html), ("verdict", verdict_html), ("heldout", heldout_html), ("errormap", errormap_html),
+    ("header", header_html), ("verdict", verdict_html), ("assumptions", assumptions_html),
+    ("heldout", heldout_html), ("errormap", errormap_html),
     ("turntable", turntable_html), ("curves", curves_html), ("textures", textures_html),
     ("timings", timings_html), ("config", config_html), ("missing", missing_html))
 

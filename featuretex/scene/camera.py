@@ -26,6 +26,7 @@ class Camera:
     cx: float
     cy: float
     distortion: tuple[float, float, float, float, float] = field(default=(0.0, 0.0, 0.0, 0.0, 0.0))
+    axes: str = "opencv"   # how scene.yaml's poses for this camera were written; poses are converted on reading
 
     @property
     def distorted(self) -> bool:

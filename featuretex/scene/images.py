@@ -1,4 +1,5 @@
-"""Photo and mask decoding: 8/16-bit PNG, JPEG (EXIF orientation honoured), TIFF -> linear light.
+"""Photo and mask decoding: 8/16-bit PNG, JPEG (EXIF orientation honoured), TIFF, HEIC, camera RAW
+-> linear light.
 
 What is accepted, and how (every other kind of file is refused with an InputError):
 
@@ -8,10 +9,13 @@ What is accepted, and how (every other kind of file is refused with an InputErro
 | 16-bit RGB / grey PNG or TIFF | decoded at full depth (OpenCV; Pillow keeps only 8 bits of 16-bit RGB) | as above |
 | with alpha (RGBA, LA, palette transparency) | alpha ignored | alpha >= 0.5 is the mask   |
 | EXIF orientation 2..8         | turned upright first        | turned upright first         |
+| HEIC / HEIF (through pillow-heif) | decoded at 8 bits, upright as stored | as 8-bit above       |
+| camera RAW (by extension: RAW_SUFFIXES; through rawpy/LibRaw) | demosaiced, linear (see `_raw_levels`) | refused |
 | CMYK, Lab, HSV, 32-bit int / float | refused: not an sRGB-encoded photo               ||
 
-Pixel values are read as sRGB-encoded (DESIGN §2); photos are decoded to linear light with the
-IEC 61966-2-1 curve.
+Pixel values of ordinary images are read as sRGB-encoded; photos are decoded to linear light with
+the IEC 61966-2-1 curve. A RAW photo is linear already: it is carried as 16-bit sRGB code values
+like any other photo, so every stage reads every photo the same way.
 """
 
 from __future__ import annotations
@@ -23,7 +27,7 @@ import numpy as np
 from PIL import Image, ImageOps, UnidentifiedImageError
 
 from featuretex.errors import input_error
-from featuretex.scene.colour import srgb_to_linear
+from featuretex.scene.colour import linear_to_srgb, srgb_to_linear
 
 # Pillow modes of 8-bit data (after opening) and the mode each is converted to
 _EIGHT_BIT = {"L": "L", "LA": "LA", "RGB": "RGB", "RGBA": "RGBA", "1": "L", "P": None, "PA": "RGBA",
@@ -48,10 +52,79 @@ _ORIENT = {
     8: lambda a: np.rot90(a, 1),                      # needs 90 counter-clockwise
 }
 SWAPS_AXES = (5, 6, 7, 8)  # orientations whose upright image has width and height exchanged
+# camera RAW files, told apart by extension (a DNG is also a TIFF: Pillow would read its preview)
+RAW_SUFFIXES = frozenset({".dng", ".cr2", ".cr3", ".crw", ".nef", ".nrw", ".arw", ".srf", ".sr2", ".raf",
+                          ".orf", ".rw2", ".pef", ".srw", ".x3f", ".3fr", ".fff", ".iiq", ".rwl", ".erf",
+                          ".kdc", ".dcr", ".mrw", ".mos", ".mef"})
+FORMATS_HINT = "use PNG, JPEG, TIFF, HEIC or a camera RAW file"
 
 
 def _fail(manifest_file: str, view: str, fld: str, path: Path, what: str, hint: str | None = None):
     return input_error(manifest_file, f"'{path.name}': {what}", view=view, field=fld, hint=hint)
+
+
+def is_raw(path: Path) -> bool:
+    return path.suffix.lower() in RAW_SUFFIXES
+
+
+@lru_cache(maxsize=1)
+def _heif_opener() -> None:
+    """Teach Pillow to open HEIC/HEIF files (once per process)."""
+    import pillow_heif
+
+    pillow_heif.register_heif_opener()
+
+
+@lru_cache(maxsize=1)
+def _srgb16_table() -> np.ndarray:
+    """16-bit linear level -> 16-bit sRGB code value (IEC 61966-2-1), for every level."""
+    lin = np.arange(65536, dtype=np.float64) / 65535.0
+    return np.rint(linear_to_srgb(lin) * 65535.0).astype(np.uint16)
+
+
+def _raw_file(path: Path, manifest_file: str, view: str, fld: str):
+    """rawpy's handle on a camera RAW file, its raw data unpacked (damage shows here)."""
+    import rawpy
+
+    if fld != "image":
+        raise _fail(manifest_file, view, fld, path, "a camera RAW file cannot be a mask",
+                    hint="save the mask as a PNG (white = object)")
+    raw = None
+    try:
+        raw = rawpy.imread(str(path))
+        raw.raw_image  # noqa: B018 (unpacks the sensor data)
+    except (rawpy.LibRawError, OSError, ValueError) as e:
+        if raw is not None:
+            raw.close()
+        raise _fail(manifest_file, view, fld, path, f"cannot decode this camera RAW file ({type(e).__name__}: {e})",
+                    hint="the file is damaged, truncated or from a camera LibRaw does not know") from None
+    return raw
+
+
+def _raw_size(path: Path, manifest_file: str, view: str, fld: str) -> tuple[int, int]:
+    """(width, height) of the developed, upright RAW photo."""
+    with _raw_file(path, manifest_file, view, fld) as raw:
+        s = raw.sizes
+        return (s.height, s.width) if s.flip in (5, 6) else (s.width, s.height)
+
+
+def _raw_levels(path: Path, manifest_file: str, view: str, fld: str) -> np.ndarray:
+    """Camera RAW -> (H, W, 3) uint16 sRGB code values of the linear photo.
+
+    LibRaw demosaics (its default AHD), applies the camera's white balance as shot and its colour
+    matrix to linear sRGB primaries, with no brightening and no tone curve (gamma 1), upright by
+    the file's orientation. The linear 16-bit result is sRGB-encoded at 16 bits by a table, so
+    `linear_table` gives back the linear values within 16-bit quantisation.
+    """
+    import rawpy
+
+    with _raw_file(path, manifest_file, view, fld) as raw:
+        try:
+            lin16 = raw.postprocess(use_camera_wb=True, no_auto_bright=True, gamma=(1, 1), output_bps=16,
+                                    output_color=rawpy.ColorSpace.sRGB)
+        except (rawpy.LibRawError, OSError, ValueError) as e:
+            raise _fail(manifest_file, view, fld, path, f"cannot develop this camera RAW file ({e})") from None
+    return _srgb16_table()[lin16]
 
 
 def _orientation(im: Image.Image) -> int:
@@ -97,11 +170,12 @@ def _decode_wide(path: Path, manifest_file: str, view: str, fld: str) -> np.ndar
 
 def _open(path: Path, manifest_file: str, view: str, fld: str) -> tuple[Image.Image, bool]:
     """Open and vet a file: (Pillow image, needs the 16-bit decoder)."""
+    _heif_opener()
     try:
         im = Image.open(path)
     except (UnidentifiedImageError, OSError, ValueError, Image.DecompressionBombError) as e:
         raise _fail(manifest_file, view, fld, path, f"not an image file this tool can read ({e})",
-                    hint="use PNG, JPEG or TIFF") from None
+                    hint=FORMATS_HINT) from None
     if im.mode in _REFUSED:
         im.close()
         kind = {"I": "32-bit integer", "F": "floating-point"}.get(im.mode, im.mode)
@@ -122,8 +196,26 @@ def _load(im: Image.Image, path: Path, manifest_file: str, view: str, fld: str) 
                     hint="the file is damaged or truncated; copy it again from the camera") from None
 
 
+def header_size(path: Path) -> tuple[int, int] | None:
+    """(width, height) of the upright image from its header alone, or None if it cannot tell."""
+    try:
+        if is_raw(path):
+            return _raw_size(path, "", "", "image")
+        _heif_opener()
+        with Image.open(path) as im:
+            w, h = im.size
+            orient = im.getexif().get(0x0112, 1)
+    except Exception:  # verify_image reports what is wrong with the file
+        return None
+    return (h, w) if orient in SWAPS_AXES else (w, h)
+
+
 def verify_image(path: Path, manifest_file: str, view: str, fld: str) -> tuple[int, int]:
-    """Decode the whole file once (damage shows), keep no pixels; -> upright (width, height)."""
+    """Decode the whole file once (damage shows), keep no pixels; -> upright (width, height).
+
+    A RAW file is unpacked, not developed (demosaicing is the slow part and cannot fail on its own)."""
+    if is_raw(path):
+        return _raw_size(path, manifest_file, view, fld)
     im, _ = _open(path, manifest_file, view, fld)
     with im:
         _load(im, path, manifest_file, view, fld)
@@ -137,6 +229,8 @@ def decode_levels(path: Path, manifest_file: str, view: str, fld: str) -> np.nda
 
     C = 1 grey, 2 grey + alpha, 3 RGB, 4 RGBA. Raises InputError naming file, view and field.
     """
+    if is_raw(path):
+        return _raw_levels(path, manifest_file, view, fld)
     im, wide = _open(path, manifest_file, view, fld)
     with im:
         _load(im, path, manifest_file, view, fld)

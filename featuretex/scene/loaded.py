@@ -10,9 +10,11 @@ from pathlib import Path
 import numpy as np
 
 from featuretex.errors import input_error
-from featuretex.scene.images import SWAPS_AXES, load_mask, load_photo, load_photo_levels, verify_image
+from featuretex.scene.images import (decode_levels, header_size, load_mask, load_photo, load_photo_levels,
+                                     verify_image)
 from featuretex.scene.manifest import Manifest, View, read_manifest
 from featuretex.scene.mesh import SceneMesh, load_mesh
+from featuretex.scene.sanity import check_scene, coarse_mask, photo_is_mask
 from featuretex.scene.up import UpAxis, scene_up
 
 PHOTO_CACHE_BYTES = 1 << 30  # decoded photos kept in memory; older ones are decoded again when asked for
@@ -28,6 +30,7 @@ class Scene:
     photo_cache_bytes: int = PHOTO_CACHE_BYTES
     source: Manifest | None = None          # the scene as written, when `manifest` is derived from it
     content_key: str | None = None          # content hash of a derived scene (else the manifest's)
+    warnings: list[str] = field(default_factory=list)   # suspicious evidence found on loading, one line each
     _photos: OrderedDict[str, np.ndarray] = field(default_factory=OrderedDict, repr=False)
 
     @property
@@ -83,67 +86,49 @@ class Scene:
 def load_scene(path: str | Path) -> Scene:
     """Read, validate and load a scene (mesh decoded; photos on demand). Raises InputError.
 
-    Every photo and mask is decoded once here, so a damaged file stops the run before any work.
+    Every photo and mask is decoded once here, so a damaged file stops the run before any work, and
+    the scene as a whole is checked (featuretex.scene.sanity) before any expensive stage.
     """
     man = read_manifest(path)
-    check_images(man)
+    masks = check_images(man)
     mesh = load_mesh(man.mesh, str(man.path))
-    check_views_see_mesh(man, mesh)
-    return Scene(manifest=man, mesh=mesh)
+    warnings = check_scene(man, mesh, masks)
+    return Scene(manifest=man, mesh=mesh, warnings=warnings)
 
 
-def _header_size(p: Path) -> tuple[int, int] | None:
-    """(width, height) of the upright image from its header alone, or None if Pillow cannot tell."""
-    from PIL import Image
-
-    try:
-        with Image.open(p) as im:
-            w, h = im.size
-            orient = im.getexif().get(0x0112, 1)
-    except Exception:  # decode_image reports what is wrong with the file
-        return None
-    return (h, w) if orient in SWAPS_AXES else (w, h)
+def _lossless(p: Path) -> bool:
+    """A file that can hold a mask's exact two levels (a JPEG, HEIC or RAW photo cannot)."""
+    return p.suffix.lower() in (".png", ".tif", ".tiff", ".bmp", ".gif")
 
 
-def check_images(man: Manifest) -> None:
-    """Every photo and mask decodes, is upright the camera's width x height, and a mask is not empty.
+def check_images(man: Manifest) -> dict[str, np.ndarray]:
+    """Every photo and mask decodes, is upright the camera's width x height, a mask is not empty and
+    a photo is not its mask. Returns each view's mask reduced for the scene checks (by view name,
+    featuretex.scene.sanity.coarse_mask).
 
     The header is read first, so an image far larger than its camera is refused before decoding.
-    Photos are decoded and dropped (pixels are read again when a stage asks for them); masks are
-    small and are checked for content too.
+    Photos are decoded and dropped (pixels are read again when a stage asks for them).
     """
     file = str(man.path)
+    coarse: dict[str, np.ndarray] = {}
     for v in man.views:
         want = (v.camera.width, v.camera.height)
         for fld, p in (("image", v.image), ("mask", v.mask)):
             if p is None:
                 continue
-            size = _header_size(p)
+            size = header_size(p)
             if size is not None and size != want:
                 raise input_error(file, f"'{p.name}' is {size[0]}x{size[1]} (upright) but camera "
                                   f"'{v.camera.id}' is {want[0]}x{want[1]}", view=v.name, field=fld,
                                   hint="fix the camera's width/height or use the original photo")
-            if fld == "image":
-                verify_image(p, file, v.name, fld)
-            else:
-                load_mask(p, file, v.name, want)
-
-
-def check_views_see_mesh(man: Manifest, mesh: SceneMesh) -> None:
-    """Each camera must have the mesh in front of it and (partly) inside its image."""
-    pts = mesh.vertices
-    sample = pts[:: max(1, len(pts) // 5000)]
-    for v in man.views:
-        pc = v.to_camera(sample)
-        front = pc[:, 2] > 1e-9
-        if not front.any():
-            raise input_error(str(man.path), "the mesh lies entirely behind this camera", view=v.name,
-                              field="world_to_camera",
-                              hint="world_to_camera maps world to camera coords with +z forward; is it inverted?")
-        px = v.camera.project(pc[front])
-        inside = ((px[:, 0] > -0.5) & (px[:, 0] < v.camera.width - 0.5)
-                  & (px[:, 1] > -0.5) & (px[:, 1] < v.camera.height - 0.5))
-        if not inside.any():
-            raise input_error(str(man.path), "no part of the mesh projects into this image (camera looks away)",
-                              view=v.name, field="world_to_camera",
-                              hint="check the pose, and that the mesh and the poses use the same unit")
+        mask = load_mask(v.mask, file, v.name, want)
+        if mask is not None and _lossless(v.image):
+            if photo_is_mask(decode_levels(v.image, file, v.name, "image"), mask):
+                raise input_error(file, f"the photo '{v.image.name}' holds the same pixels as its mask "
+                                  f"'{v.mask.name}'", view=v.name, field="image",
+                                  hint="'image' must name the photo; does the image list point at the mask files?")
+        else:
+            verify_image(v.image, file, v.name, "image")
+        if mask is not None:
+            coarse[v.name] = coarse_mask(v, mask)
+    return coarse

@@ -19,8 +19,12 @@ from featuretex.scene.camera import MODELS, Camera
 
 FORMAT = "featuretex-scene/1"
 TOP_KEYS = {"format", "mesh", "unit", "up", "cameras", "views"}
-CAMERA_KEYS = {"model", "width", "height", "fx", "fy", "cx", "cy", "distortion"}
-VIEW_KEYS = {"name", "image", "mask", "camera", "world_to_camera", "holdout"}
+CAMERA_KEYS = {"model", "width", "height", "fx", "fy", "cx", "cy", "distortion", "axes", "focal_mm",
+               "sensor_width_mm"}
+VIEW_KEYS = {"name", "image", "mask", "camera", "world_to_camera", "camera_to_world", "holdout"}
+POSE_KEYS = ("world_to_camera", "camera_to_world")
+# camera axes conventions -> the (4, 4) change to featuretex's own (+x right, +y down, +z forward)
+AXES = {"opencv": np.eye(4), "opengl": np.diag([1.0, -1.0, -1.0, 1.0])}
 # scene units accepted, with their length in metres
 UNITS = {"meter": 1.0, "metre": 1.0, "m": 1.0, "centimeter": 0.01, "centimetre": 0.01, "cm": 0.01,
          "millimeter": 0.001, "millimetre": 0.001, "mm": 0.001, "inch": 0.0254, "in": 0.0254,
@@ -29,6 +33,10 @@ ROTATION_TOL = 1e-4  # max |R^T R - I| entry, and |det R - 1|
 MAX_PIXELS_PER_SIDE = 1 << 16   # wider than any sensor; bounds memory before an image is read
 MAX_MANIFEST_BYTES = 64 << 20   # a scene.yaml larger than this is not a scene description
 DISTORTION_TOL_PX = 0.01        # undistort -> distort round trip at the image border, pixels
+# plausible focal length / image width: a field of view across the image between about 127 degrees
+# (beyond what a pinhole or Brown-Conrady model describes) and 0.6 degrees (past a 1200 mm lens on
+# a small sensor)
+FOCAL_PER_WIDTH = (0.25, 100.0)
 
 
 @dataclass(frozen=True)
@@ -39,8 +47,9 @@ class View:
     image: Path
     mask: Path | None
     camera: Camera
-    world_to_camera: np.ndarray = field(repr=False)  # (4, 4) float64
+    world_to_camera: np.ndarray = field(repr=False)  # (4, 4) float64, OpenCV camera axes
     holdout: bool = False
+    pose_key: str = "world_to_camera"                # how scene.yaml gave the pose (POSE_KEYS)
 
     @property
     def R(self) -> np.ndarray:
@@ -74,6 +83,7 @@ class Manifest:
     cameras: dict[str, Camera]
     views: tuple[View, ...]
     up: np.ndarray | None = None     # (3,) float64 unit, scene frame, when scene.yaml gives it
+    assumed: tuple[tuple[str, str], ...] = ()   # (what, one plain sentence) for values not given
 
     @property
     def root(self) -> Path:
@@ -133,7 +143,7 @@ def _number(value: Any, file: str, *, view: str | None, fld: str, positive: bool
                           hint="the tool that wrote the file lost this value; export it again")
     if positive and v <= 0:
         raise input_error(file, f"must be > 0, got {_short(value)}", view=view, field=fld,
-                          hint="focal lengths are in pixels: focal length in mm x image width / sensor width")
+                          hint="fx/fy are in pixels; focal_mm and sensor_width_mm in millimetres")
     return v
 
 
@@ -208,25 +218,80 @@ def _text_id(value: Any) -> str | None:
     return None
 
 
-def parse_camera(cid: str, d: Any, file: str) -> Camera:
+def _one_way(d: dict, ways: tuple[tuple[str, ...], ...], file: str, where: str, *, view: str | None = None,
+             what: str) -> tuple[str, ...]:
+    """Which of the alternative key sets `ways` the mapping uses: exactly one, and all of its keys."""
+    used = [w for w in ways if any(k in d for k in w)]
+    names = " or ".join("/".join(w) for w in ways)
+    if len(used) != 1:
+        fld = "/".join(k for w in (used or ways) for k in w)
+        raise input_error(file, "missing" if not used else f"give {what} one way only", view=view,
+                          field=f"{where}{fld}" if view is None else fld, hint=f"write either {names}")
+    for k in used[0]:
+        if k not in d:
+            raise input_error(file, "missing", view=view, field=f"{where}{k}" if view is None else k,
+                              hint=f"{'/'.join(used[0])} go together")
+    return used[0]
+
+
+def _focal_px(d: dict, w: int, file: str, where: str) -> tuple[float, float]:
+    """(fx, fy) in pixels, from fx/fy or from focal_mm with sensor_width_mm (square pixels)."""
+    way = _one_way(d, (("fx", "fy"), ("focal_mm", "sensor_width_mm")), file, f"{where}.", what="the focal length")
+    if way == ("fx", "fy"):
+        fx = _number(d["fx"], file, view=None, fld=f"{where}.fx", positive=True)
+        fy = _number(d["fy"], file, view=None, fld=f"{where}.fy", positive=True)
+        _plausible_focal(fx, w, file, f"{where}.fx", f"fx = {fx:g} px",
+                         f"is it a focal length in millimetres? then write 'focal_mm: {fx:g}' and the sensor's "
+                         "width as 'sensor_width_mm' instead of fx and fy")
+        return fx, fy
+    mm = _number(d["focal_mm"], file, view=None, fld=f"{where}.focal_mm", positive=True)
+    sensor = _number(d["sensor_width_mm"], file, view=None, fld=f"{where}.sensor_width_mm", positive=True)
+    f = mm * w / sensor           # pixels per mm across the sensor, times the focal length in mm
+    # sensor widths recalled from memory: full frame 36 mm, APS-C about 23.5 mm
+    _plausible_focal(f, w, file, f"{where}.focal_mm/sensor_width_mm", f"focal_mm {mm:g} on a {sensor:g} mm sensor",
+                     "sensor_width_mm is the sensor's width in millimetres (36 for full frame, about 23.5 "
+                     "for APS-C)")
+    return f, f
+
+
+def _plausible_focal(f: float, w: int, file: str, fld: str, given: str, hint: str) -> None:
+    if not FOCAL_PER_WIDTH[0] <= f / w <= FOCAL_PER_WIDTH[1]:
+        fov = math.degrees(2 * math.atan(w / (2 * f)))
+        raise input_error(file, f"{given} means a {fov:.3g} degree field of view across the {w} px wide "
+                          "photo, which no photo of an object has", field=fld, hint=hint)
+
+
+def parse_camera(cid: str, d: Any, file: str) -> tuple[Camera, list[tuple[str, str]]]:
+    """One camera block -> (Camera, what was assumed for values it leaves out)."""
     where = f"cameras.{cid}"
     if not isinstance(d, dict):
         raise input_error(file, f"expected a mapping of camera fields, got {_short(d)}", field=where)
     _unknown_keys(d, CAMERA_KEYS, file, view=None, where=where)
-    for k in ("model", "width", "height", "fx", "fy", "cx", "cy"):
+    for k in ("model", "width", "height"):
         if k not in d:
             raise input_error(file, "missing", field=f"{where}.{k}",
-                              hint="a camera needs model, width, height, fx, fy, cx and cy")
+                              hint="a camera needs model, width, height, a focal length (fx and fy, or "
+                                   "focal_mm and sensor_width_mm), cx and cy")
     model = d["model"]
     if not isinstance(model, str) or model not in MODELS:
         raise input_error(file, f"unknown camera model {_short(model)}", field=f"{where}.model",
                           hint=f"use one of {', '.join(MODELS)}")
+    axes = d.get("axes", "opencv")
+    if not isinstance(axes, str) or axes not in AXES:
+        raise input_error(file, f"unknown camera axes {_short(axes)}", field=f"{where}.axes",
+                          hint="opencv (+x right, +y down, +z forward) or opengl (+x right, +y up, looks down -z)")
     w = _integer(d["width"], file, view=None, fld=f"{where}.width")
     h = _integer(d["height"], file, view=None, fld=f"{where}.height")
-    fx = _number(d["fx"], file, view=None, fld=f"{where}.fx", positive=True)
-    fy = _number(d["fy"], file, view=None, fld=f"{where}.fy", positive=True)
-    cx = _number(d["cx"], file, view=None, fld=f"{where}.cx")
-    cy = _number(d["cy"], file, view=None, fld=f"{where}.cy")
+    fx, fy = _focal_px(d, w, file, where)
+    assumed = []
+    if "cx" not in d and "cy" not in d:
+        cx, cy = (w - 1) / 2, (h - 1) / 2
+        assumed.append(("principal point", f"camera '{cid}' gives no cx/cy: the image centre "
+                                           f"({cx:g}, {cy:g}) is taken as its principal point"))
+    else:
+        _one_way(d, (("cx", "cy"),), file, f"{where}.", what="the principal point")
+        cx = _number(d["cx"], file, view=None, fld=f"{where}.cx")
+        cy = _number(d["cy"], file, view=None, fld=f"{where}.cy")
     if not (-0.5 * w <= cx <= 1.5 * w and -0.5 * h <= cy <= 1.5 * h):
         raise input_error(file, f"principal point ({cx:g}, {cy:g}) lies far outside the {w}x{h} image",
                           field=f"{where}.cx/cy", hint="cx, cy are in pixels; (0, 0) is the top-left pixel centre")
@@ -238,9 +303,9 @@ def parse_camera(cid: str, d: Any, file: str) -> Camera:
                               field=f"{where}.distortion", hint="4 or 5 numbers; leave it out for no distortion")
         vals = [_number(c, file, view=None, fld=f"{where}.distortion[{i}]") for i, c in enumerate(dist)]
         coeffs = tuple(vals + [0.0] * (5 - len(vals)))  # type: ignore[assignment]
-    cam = Camera(id=cid, model=model, width=w, height=h, fx=fx, fy=fy, cx=cx, cy=cy, distortion=coeffs)
+    cam = Camera(id=cid, model=model, width=w, height=h, fx=fx, fy=fy, cx=cx, cy=cy, distortion=coeffs, axes=axes)
     _check_distortion(cam, file, where)
-    return cam
+    return cam, assumed
 
 
 def _check_distortion(cam: Camera, file: str, where: str) -> None:
@@ -285,13 +350,13 @@ def _matrix(value: Any, file: str, view: str, fld: str) -> np.ndarray:
     return np.array(rows, dtype=np.float64)
 
 
-def parse_pose(value: Any, file: str, view: str) -> np.ndarray:
-    """3x4 or 4x4 nested list -> (4, 4) float64; the 3x3 block must be a proper rotation.
+def parse_pose(value: Any, file: str, view: str, fld: str = "world_to_camera") -> np.ndarray:
+    """3x4 or 4x4 nested list -> (4, 4) float64 rigid transform, as written (no inversion).
 
-    A block within ROTATION_TOL of a rotation (rounded printing) is replaced by the nearest
-    rotation (SVD), so everything downstream works with an exact rigid transform.
+    The 3x3 block must be a proper rotation. A block within ROTATION_TOL of a rotation (rounded
+    printing) is replaced by the nearest rotation (SVD), so everything downstream works with an
+    exact rigid transform.
     """
-    fld = "world_to_camera"
     m = _matrix(value, file, view, fld)
     if m.shape == (4, 4) and not np.allclose(m[3], [0, 0, 0, 1], atol=1e-9):
         raise input_error(file, f"last row must be [0, 0, 0, 1], got {m[3].tolist()}", view=view, field=fld)
@@ -303,12 +368,26 @@ def parse_pose(value: Any, file: str, view: str) -> np.ndarray:
         what = "a mirror (det < 0)" if det < 0 else "not a rotation"
         raise input_error(file, f"the 3x3 block is {what} (max |RᵀR − I| = {ortho:.2g}, det = {det:.4g})",
                           view=view, field=fld,
-                          hint="world_to_camera must be a rigid transform; scale belongs in the mesh or 'unit'")
+                          hint=f"{fld} must be a rigid transform; scale belongs in the mesh or 'unit'")
     u, _, vt = np.linalg.svd(R)
     out = np.eye(4)
     out[:3, :3] = u @ vt
     out[:3, 3] = m[:3, 3]
     return out
+
+
+def invert_rigid(m: np.ndarray) -> np.ndarray:
+    """(4, 4) rigid transform -> its inverse, exactly [R^T, -R^T t]."""
+    out = np.eye(4)
+    out[:3, :3] = m[:3, :3].T
+    out[:3, 3] = -m[:3, :3].T @ m[:3, 3]
+    return out
+
+
+def world_to_camera(pose: np.ndarray, pose_key: str, axes: str) -> np.ndarray:
+    """A pose as scene.yaml gives it -> (4, 4) world_to_camera in OpenCV camera axes."""
+    w2c = pose if pose_key == "world_to_camera" else invert_rigid(pose)
+    return AXES[axes] @ w2c
 
 
 class _StrictLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # libyaml's parser when present
@@ -396,10 +475,11 @@ def _parse_view(i: int, vd: Any, file: str, root: Path, cameras: dict[str, Camer
         raise input_error(file, "duplicate view name", view=name, field="name",
                           hint="every view needs its own name")
     seen.add(name)
-    for k in ("image", "camera", "world_to_camera"):
+    for k in ("image", "camera"):
         if k not in vd:
             raise input_error(file, "missing", view=name, field=k,
-                              hint="a view needs name, image, camera and world_to_camera")
+                              hint="a view needs name, image, camera and world_to_camera (or camera_to_world)")
+    (pose_key,) = _one_way(vd, tuple((k,) for k in POSE_KEYS), file, "", view=name, what="the pose")
     cid = _text_id(vd["camera"])
     if cid not in cameras:
         raise input_error(file, f"unknown camera id {_short(vd['camera'])}", view=name, field="camera",
@@ -412,8 +492,10 @@ def _parse_view(i: int, vd: Any, file: str, root: Path, cameras: dict[str, Camer
     if not isinstance(holdout, bool):
         raise input_error(file, f"expected true or false, got {_short(holdout)}", view=name, field="holdout",
                           hint="true = the view is only scored, never fitted")
-    pose = parse_pose(vd["world_to_camera"], file, name)
-    return View(name=name, image=image, mask=mask, camera=cameras[cid], world_to_camera=pose, holdout=holdout)
+    cam = cameras[cid]
+    pose = world_to_camera(parse_pose(vd[pose_key], file, name, pose_key), pose_key, cam.axes)
+    return View(name=name, image=image, mask=mask, camera=cam, world_to_camera=pose, holdout=holdout,
+                pose_key=pose_key)
 
 
 def read_manifest(path: str | Path) -> Manifest:
@@ -453,13 +535,15 @@ def read_manifest(path: str | Path) -> Manifest:
         raise input_error(file, f"expected a non-empty mapping of camera id -> intrinsics, got {_short(cams_raw)}",
                           field="cameras", hint="write 'cameras:' then one indented block per camera id")
     cameras: dict[str, Camera] = {}
+    assumed: list[tuple[str, str]] = []
     for key, d in cams_raw.items():
         cid = _text_id(key)
         if cid is None:
             raise input_error(file, f"camera id {_short(key)} is not text", field="cameras")
         if cid in cameras:
             raise input_error(file, f"camera id {cid!r} given twice", field="cameras")
-        cameras[cid] = parse_camera(cid, d, file)
+        cameras[cid], notes = parse_camera(cid, d, file)
+        assumed += notes
     views_raw = data.get("views")
     if not isinstance(views_raw, list) or not views_raw:
         raise input_error(file, f"expected a non-empty list of views, got {_short(views_raw)}", field="views",
@@ -475,4 +559,5 @@ def read_manifest(path: str | Path) -> Manifest:
         raise input_error(file, f"only {n_fit} fitted view; at least 2 are needed", field="views[].holdout",
                           hint="mark at least two views 'holdout: false'")
     up = parse_up(data["up"], file) if data.get("up") is not None else None
-    return Manifest(path=path, mesh=mesh, unit=unit, cameras=cameras, views=tuple(views), up=up)
+    return Manifest(path=path, mesh=mesh, unit=unit, cameras=cameras, views=tuple(views), up=up,
+                    assumed=tuple(assumed))
