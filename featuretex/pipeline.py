@@ -252,6 +252,8 @@ def build_summary(scene: Scene, cfg: FeaturetexConfig, plan: WorkingPlan, heldou
         "reasons": diag["reasons"],
         "heldout": {k: _strip(heldout[k]) for k in methods},
         "areas": diag["areas"],
+        "regions": diag.get("regions", []),
+        "payoff_db": diag.get("payoff_db", {}),
         "timings_s": {**{k: book.timings.get(k) for k in ("photos", "gbuffer", "baseline", "fit", "bake", "export",
                                                           "diagnose", "score")},
                       "total": round(total_s, 3)},

@@ -20,11 +20,13 @@ import numpy as np
 
 from featuretex.bake.sampling import sample_texture
 from featuretex.diagnose import classify as C
+from featuretex.diagnose import payoff as P
 from featuretex.diagnose.alignment import alignment_evidence, field_at, global_shift, parse_corrections
 from featuretex.diagnose.config import DiagnoseConfig
 from featuretex.diagnose.consistency import Samples, consensus, loo_ncc
 from featuretex.diagnose.exposure import exposure
 from featuretex.diagnose.grid import Resampler, footprint_ratio, texel_areas, texel_edge, working_size
+from featuretex.diagnose.numbered import label_map, number_regions
 from featuretex.diagnose.observe import Observation, observe
 from featuretex.diagnose.silhouette import silhouette_evidence
 from featuretex.diagnose.sweep import sweep
@@ -54,11 +56,14 @@ class Diagnosis:
     extra: dict[str, np.ndarray] = field(default_factory=dict)   # more (T, T) fields for error_map.npz
     work: dict[str, np.ndarray] = field(default_factory=dict)    # the same on the working grid (D, D)
     figures: dict = field(default_factory=dict)                  # scalars for the summary / report
+    regions: list[dict] = field(default_factory=list)            # the numbered regions (summary.json)
+    payoff_db: dict = field(default_factory=dict)                # scan: {"geometry", "texture"} dB
 
     def summary_fields(self) -> dict:
-        """The `verdict`, `reasons` and `areas` entries of summary.json."""
+        """The `verdict`, `reasons`, `areas`, `regions` and `payoff_db` entries of summary.json."""
         return {"verdict": self.verdict, "reasons": list(self.reasons),
-                "areas": {k: round(float(v), 6) for k, v in self.areas.items()}}
+                "areas": {k: round(float(v), 6) for k, v in self.areas.items()},
+                "regions": list(self.regions), "payoff_db": dict(self.payoff_db)}
 
 
 def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, texture_lin: np.ndarray,
@@ -114,21 +119,33 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
                        len(obs), cfg)
     verdict = decide(ev, cfg, fix_tol)
     words = reasons(verdict, ev, cfg, fix_tol, scene.manifest.unit, scene.manifest.unit_m)
+    numbered = number_regions(cls, area, grid.position, hidden, displacement, verdict,
+                              per_class=cfg.regions_reported)
+    pay = P.estimate(obs, grid.position.reshape(-1, 3).astype(np.float64), grid.normal.reshape(-1, 3).astype(np.float64),
+                     area, P.fix_offsets(displacement, known & ~hidden), work["residual"], work["agreement"],
+                     P.texture_share(history),
+                     P.render_error(scene, gbuffers, texture_lin))
+    regions = P.region_entries(numbered, pay)
+    words += P.reasons(pay, numbered, regions)
 
-    work.update(geometry=geometry, texture=texture, cls=cls, valid=valid, hidden=hidden)
+    work.update(geometry=geometry, texture=texture, cls=cls, valid=valid, hidden=hidden, displacement=displacement,
+                region=label_map(numbered, cls.shape), **P.gain_maps(pay, cls.shape))
     up = Resampler(valid, texels.valid)
     cls_t = up(cls.astype(np.float32), mode="max")
     cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
     extra = {k: up(work[k]) for k in ("consistency", "consistency_aligned", "residual", "align_misplacement",
                                       "align_offset", "sweep_gain", "sweep_score", "sweep_evidence",
                                       "silhouette_offset", "silhouette_raw") if k in work}
+    extra["region"] = up(work["region"].astype(np.float32), mode="max")
+    extra.update({k: up(work[k]) for k in ("gain_geometry", "gain_texture")})
     figures = {"working_grid": D, "texture_size": T, "footprint_ratio": float(ratio), "views": len(obs),
                "sweep_half_range": float(half), "geometry_tol": float(geo_tol), "fix_tol": float(fix_tol),
                "geometry_misplacement_p90": ev.geometry_misplacement, "fit_tail_drop": progress.tail_drop,
-               "global_shift_px": ev.global_shift_px, "used_alignment": ev.used_alignment}
+               "global_shift_px": ev.global_shift_px, "used_alignment": ev.used_alignment,
+               "payoff": P.figures(pay)}
     return Diagnosis(geometry=up(geometry), texture=up(texture), coverage=up(work["coverage"]),
                      displacement=up(displacement), cls=cls_t, areas=ev.areas, verdict=verdict, reasons=words,
-                     extra=extra, work=work, figures=figures)
+                     extra=extra, work=work, figures=figures, regions=regions, payoff_db=pay.over())
 
 
 def combined_displacement(work: dict[str, np.ndarray], known: np.ndarray) -> np.ndarray:

@@ -10,6 +10,7 @@ import numpy as np
 from featuretex.atomic import atomic_path, write_bytes
 from featuretex.bake.gutter import fill_texture
 from featuretex.diagnose.core import Diagnosis
+from featuretex.diagnose.numbered import draw_numbers, legend_lines
 from featuretex.diagnose.palette import paint, with_legend
 from featuretex.diagnose.verdict import length
 from featuretex.export.ply import write_vertex_colour_ply
@@ -60,8 +61,12 @@ def write_png(path: Path, uv_map: np.ndarray, dg: Diagnosis, scene: Scene) -> No
              f"geometry tolerance {length(f.get('geometry_tol', float('nan')), unit, um)}; sweep range "
              f"+/- {length(f.get('sweep_half_range', float('nan')), unit, um)}; {f.get('views', 0)} fitted views"
              + ("" if f.get("used_alignment") else "; no alignment fields"),
-             "UV space, v up; paler tint on fine texels = evidence below the threshold"]
+             "UV space, v up; paler tint on fine texels = evidence below the threshold; "
+             "G / T: fixing the geometry / fitting longer pays more"] + legend_lines(dg.regions)
     img = with_legend(uv_map, f"verdict: {dg.verdict}", lines)
+    if "region" in dg.work:
+        k = uv_map.shape[0] // dg.work["region"].shape[0]
+        draw_numbers(img, np.repeat(np.repeat(dg.work["region"], k, axis=0), k, axis=1), dg.regions)
     buf = io.BytesIO()
     img.save(buf, format="PNG", compress_level=6)
     write_bytes(path, buf.getvalue())
