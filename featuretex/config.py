@@ -19,6 +19,7 @@ from featuretex.export.config import ExportConfig
 from featuretex.fit.config import FitConfig
 from featuretex.raster.config import RasterConfig
 from featuretex.settings import setting
+from featuretex.touchup.config import TouchupConfig
 from featuretex.working_config import PhotoConfig
 
 
@@ -37,6 +38,8 @@ class FeaturetexConfig:
     export: ExportConfig = field(default_factory=ExportConfig)
     diagnose: DiagnoseConfig = field(default_factory=DiagnoseConfig)
     report: bool = True           # write report.html (with turntable previews)
+    touchup: bool = False         # move the surface where the diagnosis is confident, re-fit, re-bake (touchup/)
+    touchup_settings: TouchupConfig = field(default_factory=TouchupConfig)
 
 
 @dataclass

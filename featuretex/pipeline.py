@@ -37,6 +37,7 @@ from featuretex.scene.locate import resolve_scene_path
 from featuretex.score import score_method
 from featuretex.stages import StageBook, key_of
 from featuretex.threads import job_threads, use_threads
+from featuretex.touchup.evidence import grid_fields
 from featuretex.working import WorkingPlan, plan_working, working_scene
 
 log = logging.getLogger("featuretex")
@@ -139,17 +140,19 @@ def stage_export(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook
 def stage_diagnose(scene: Scene, gbuffers, texels: TexelBuffer, texture_lin: np.ndarray, fit, cfg: FeaturetexConfig,
                    out: Path, book: StageBook, key: str) -> dict:
     record = out / "stages" / "diagnosis.json"
+    grid = out / "stages" / "diagnosis_grid.npz"     # the working-grid fields the touch-up starts from
 
     def compute():
         dg = diagnose(scene, gbuffers, texels, texture_lin, cfg.diagnose, corrections=fit.corrections,
                       history=fit.history)
         write_outputs(out, dg, scene, texels)
+        _save_npz(grid, **grid_fields(dg.work))
         fields = dg.summary_fields()
         fields["figures"] = _jsonable(dg.figures)
         write_json(record, fields)
         return fields
 
-    artefacts = [record, out / "error_map.png", out / "error_map.npz", out / "diagnosis.ply"]
+    artefacts = [record, grid, out / "error_map.png", out / "error_map.npz", out / "diagnosis.ply"]
     return book.run("diagnose", key, artefacts, compute, lambda: json.loads(record.read_text()))
 
 
@@ -209,6 +212,16 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     t0 = time.perf_counter()
     heldout = score_all(scene, gbuffers, base_tex, fit.model, baked_tex, out, cfg.seed)
     book.timings["score"] = round(time.perf_counter() - t0, 3)
+    if cfg.touchup:
+        from featuretex.touchup.stage import stage_touchup
+
+        t0 = time.perf_counter()
+        with np.load(out / "stages" / "diagnosis_grid.npz") as z:
+            grid = {k: z[k] for k in z.files}
+        tu = stage_touchup(scene, cfg, out, book, key_of(bake_key, cfg.diagnose, cfg.touchup_settings), size,
+                           gbuffers, fit, baked_tex, diag, grid)
+        heldout["touchup"], heldout["touchup_report"] = tu["heldout"], tu["report"]
+        book.timings["touchup"] = round(time.perf_counter() - t0, 3)
 
     summary = build_summary(scene, cfg, plan, heldout, diag, fit, book, time.perf_counter() - t_start)
     summary["inferred"] = inferred_items(scene, plan.texture_size, bool(cfg.texture.size), summary)
@@ -245,9 +258,9 @@ def _strip(d: dict) -> dict:
 def build_summary(scene: Scene, cfg: FeaturetexConfig, plan: WorkingPlan, heldout: dict, diag: dict, fit,
                   book: StageBook, total_s: float) -> dict:
     m = scene.manifest
-    methods = ("baseline", "baked", "neural")
+    methods = ("baseline", "baked", "neural") + (("touchup",) if "touchup" in heldout else ())
     hist = fit.history or {}
-    return {
+    summary = {
         "verdict": diag["verdict"],
         "reasons": diag["reasons"],
         "heldout": {k: _strip(heldout[k]) for k in methods},
@@ -256,6 +269,7 @@ def build_summary(scene: Scene, cfg: FeaturetexConfig, plan: WorkingPlan, heldou
         "payoff_db": diag.get("payoff_db", {}),
         "timings_s": {**{k: book.timings.get(k) for k in ("photos", "gbuffer", "baseline", "fit", "bake", "export",
                                                           "diagnose", "score")},
+                      **({"touchup": book.timings["touchup"]} if "touchup" in book.timings else {}),
                       "total": round(total_s, 3)},
         "bake_gap_db": heldout["bake_gap_db"],
         "gain_db": {
@@ -276,6 +290,13 @@ def build_summary(scene: Scene, cfg: FeaturetexConfig, plan: WorkingPlan, heldou
         "views": {"fitted": len(m.fitted), "heldout": len(m.heldout)},
         "seed": cfg.seed,
     }
+    if "touchup" in heldout:
+        summary["touchup"] = heldout["touchup_report"]
+        summary["gain_db"].update(touchup_plain_vs_baseline=_diff(heldout["touchup"], heldout["baseline"], "psnr"),
+                                  touchup_plain_vs_baked=_diff(heldout["touchup"], heldout["baked"], "psnr"),
+                                  touchup_tolerant_vs_baseline=_diff(heldout["touchup"], heldout["baseline"],
+                                                                     "psnr_tolerant"))
+    return summary
 
 
 def _diff(a: dict, b: dict, key: str) -> float | None:

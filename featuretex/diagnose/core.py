@@ -129,7 +129,8 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     words += P.reasons(pay, numbered, regions)
 
     work.update(geometry=geometry, texture=texture, cls=cls, valid=valid, hidden=hidden, displacement=displacement,
-                region=label_map(numbered, cls.shape), **P.gain_maps(pay, cls.shape))
+                region=label_map(numbered, cls.shape), loo_se=pay.se.reshape(cls.shape),
+                loo_px=pay.pixels.reshape(cls.shape), **P.gain_maps(pay, cls.shape))
     up = Resampler(valid, texels.valid)
     cls_t = up(cls.astype(np.float32), mode="max")
     cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)

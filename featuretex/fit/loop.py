@@ -325,9 +325,11 @@ def fit_scene(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.n
 def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.ndarray,
             init_valid: np.ndarray | None, cfg: FitConfig, run_dir: Path, *, seed: int, quiet: bool,
             config_hash: str, eval_hook: Callable[[int, SceneModel, float], None] | None = None,
-            step_hook: Callable[[int], None] | None = None) -> FitResult:
+            step_hook: Callable[[int], None] | None = None, warm: SceneModel | None = None) -> FitResult:
     """fit_scene with hooks: eval_hook(step, model, fit seconds so far) after every evaluation (its own
-    time is not counted), step_hook(step) after every step (tests use it to interrupt)."""
+    time is not counted), step_hook(step) after every step (tests use it to interrupt). warm: a fitted
+    model of the same configuration and views to start from (its texture, decoder and corrections)
+    instead of the initial texture (the geometry touch-up re-fits on a moved surface with the same UVs)."""
     check_fit_config(cfg)   # the pipeline checks first; this is for callers of run_fit itself
     key = ckpt.fit_hash(config_hash, cfg, seed)
     fit_dir = run_dir / "fit"
@@ -366,6 +368,8 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
         torch.manual_seed(seed)
         model = build_model(cfg, fill_unmeasured(init_texture_lin, init_valid), names, sizes, reference,
                             np.random.default_rng(seed))
+        if warm is not None:   # a re-fit starts from the model it refines
+            model.load_state_dict(warm.state_dict())
         try:
             sampler = CropSampler(train_views, cfg.crop, cfg.batch, seed)
         except ValueError:
