@@ -23,6 +23,7 @@ from featuretex.report import errormap, plots
 from featuretex.report.inline import data_uri, esc, file_uri, image_png, num, percent, seconds, thumbnail_uri
 from featuretex.report.rundir import ARTEFACTS, METHOD_LABELS, METHODS, RunDir, read_run_dir
 from featuretex.report.style import CSS
+from featuretex.report.touchup import touchup_html
 from featuretex.report.verdicts import describe
 
 log = logging.getLogger("featuretex")
@@ -375,7 +376,7 @@ def missing_html(run: RunDir) -> str:
 # ---------------------------------------------------------------------------------------------
 SECTIONS: tuple[tuple[str, Callable[[RunDir], str]], ...] = (
     ("header", header_html), ("verdict", verdict_html), ("assumptions", assumptions_html),
-    ("heldout", heldout_html), ("errormap", errormap_html),
+    ("heldout", heldout_html), ("errormap", errormap_html), ("touchup", touchup_html),
     ("turntable", turntable_html), ("curves", curves_html), ("textures", textures_html),
     ("timings", timings_html), ("config", config_html), ("missing", missing_html))
 
