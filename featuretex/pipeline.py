@@ -219,7 +219,7 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
         with np.load(out / "stages" / "diagnosis_grid.npz") as z:
             grid = {k: z[k] for k in z.files}
         tu = stage_touchup(scene, cfg, out, book, key_of(bake_key, cfg.diagnose, cfg.touchup_settings), size,
-                           gbuffers, fit, baked_tex, diag, grid)
+                           gbuffers, fit, baked_tex, diag, grid, output_frame(scene))
         heldout["touchup"], heldout["touchup_report"] = tu["heldout"], tu["report"]
         book.timings["touchup"] = round(time.perf_counter() - t0, 3)
 

@@ -37,12 +37,14 @@ def write_offsets_ply(path: Path, mesh: SceneMesh, offset: np.ndarray, scale: fl
 
 
 def write_model(out_dir: Path, mesh: SceneMesh, texture_lin: np.ndarray, formats: list[str], *, unlit: bool,
-                bits: int = 8) -> list[Path]:
-    """texture.png and the touched-up model through the exporter plugins named in `formats`."""
+                gltf_from_scene: np.ndarray, bits: int = 8) -> list[Path]:
+    """texture.png and the touched-up model through the exporter plugins named in `formats`
+    (gltf_from_scene: (4, 4) the run's scene -> glTF matrix, as for the run's own model)."""
     out_dir.mkdir(parents=True, exist_ok=True)
     png = out_dir / "texture.png"
     write_texture_png(png, linear_to_srgb(texture_lin), bits=bits)
     written = [png]
     for name in formats:
-        written += plugins.load("exporters", name)().export(out_dir, mesh, png, unlit=unlit)
+        written += plugins.load("exporters", name)().export(out_dir, mesh, png, unlit=unlit,
+                                                            gltf_from_scene=gltf_from_scene)
     return written

@@ -195,9 +195,11 @@ def cfg_out(folder: Path) -> Path:
 
 
 def stage_touchup(scene: Scene, cfg, out: Path, book: StageBook, key: str, size: int, gbuffers: dict,
-                  fit: FitResult, baked_tex: np.ndarray, diag: dict, grid_fields: dict[str, np.ndarray]) -> dict:
-    """Run the touch-up after the run's own diagnosis; write `touchup/` and score it on the held-out
-    views. Returns {"heldout": scores like the other methods' (with per_view), "report": figures}."""
+                  fit: FitResult, baked_tex: np.ndarray, diag: dict, grid_fields: dict[str, np.ndarray],
+                  frame: np.ndarray) -> dict:
+    """Run the touch-up after the run's own diagnosis; write `touchup/` (frame: the run's (4, 4)
+    scene -> glTF matrix) and score it on the held-out views. Returns {"heldout": scores like the
+    other methods' (with per_view), "report": figures}."""
     from featuretex.score import score_method
     from featuretex.render import render_texture
 
@@ -214,11 +216,12 @@ def stage_touchup(scene: Scene, cfg, out: Path, book: StageBook, key: str, size:
 
     def export() -> list[Path]:
         written = write_model(folder, best.mesh, best.texture_lin, list(cfg.export.formats), unlit=cfg.export.unlit,
-                              bits=cfg.texture.bits)
+                              gltf_from_scene=frame, bits=cfg.texture.bits)
         scale = max(float(np.abs(best.offset).max()), diag["figures"]["geometry_tol"])
         return written + [write_offsets_ply(folder / "offsets.ply", best.mesh, best.offset, scale)]
 
-    book.run("touchup_export", key_of(key, best.k, [r.kept for r in rounds], cfg.export, cfg.texture.bits),
+    book.run("touchup_export", key_of(key, best.k, [r.kept for r in rounds], cfg.export, cfg.texture.bits,
+                                      frame.tolist()),
              files, export, lambda: files)
     held = scene.manifest.heldout
     gb = best.gbuffers or gbuffers
