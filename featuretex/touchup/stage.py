@@ -240,7 +240,7 @@ def report_figures(rounds: list[RoundState], best: RoundState, scene: Scene, hal
                        "verdict": r.summary.get("verdict"),
                        "payoff_db": r.summary.get("payoff_db")} for r in rounds[1:]],
            "result_round": best.k,
-           "moved_vertices": int(moving.sum()),
+           "moved_vertices": int(len(np.unique(welded(scene.mesh).inverse[moving]))),   # seam copies once
            "moved_share": round(float(area[moving].sum() / max(area.sum(), 1e-30)), 6),
            "offset_max": round(float(np.abs(off).max()), 6) if len(off) else 0.0,
            "offset_median_moved": round(float(np.median(np.abs(off[moving]))), 6) if moving.any() else 0.0,
