@@ -18,6 +18,7 @@ import dataclasses
 import json
 import logging
 import math
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -199,7 +200,7 @@ def stage_touchup(scene: Scene, cfg, out: Path, book: StageBook, key: str, size:
                   frame: np.ndarray) -> dict:
     """Run the touch-up after the run's own diagnosis; write `touchup/` (frame: the run's (4, 4)
     scene -> glTF matrix) and score it on the held-out views. Returns {"heldout": scores like the
-    other methods' (with per_view), "report": figures}."""
+    other methods' (with per_view), "report": figures, "seconds": the touch-up's own time}."""
     from featuretex.score import score_method
     from featuretex.render import render_texture
 
@@ -225,9 +226,12 @@ def stage_touchup(scene: Scene, cfg, out: Path, book: StageBook, key: str, size:
              files, export, lambda: files)
     held = scene.manifest.heldout
     gb = best.gbuffers or gbuffers
+    t0 = time.perf_counter()
     scores = score_method(final_scene, gb, {v.name: render_texture(gb[v.name], best.mesh, best.texture_lin)
                                             for v in held}, out / "heldout", "touchup")
-    return {"heldout": scores, "report": report_figures(rounds, best, scene, half)}
+    # the seconds its stages took when they ran (a resumed touch-up counts them as the others do)
+    seconds = sum(v for k, v in book.timings.items() if k.startswith("touchup")) + time.perf_counter() - t0
+    return {"heldout": scores, "report": report_figures(rounds, best, scene, half), "seconds": round(seconds, 3)}
 
 
 def report_figures(rounds: list[RoundState], best: RoundState, scene: Scene, half: float) -> dict:
