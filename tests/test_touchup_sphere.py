@@ -124,7 +124,7 @@ def test_pipeline_touchup_outputs_and_resume(tmp_path_factory):
     scene, _, folder = scene_of("dent", tmp_path_factory)
     out = tmp_path_factory.mktemp("touchup_run") / "run"     # a run folder never lies in the scene folder
     args = [sys.executable, "-m", "featuretex.cli", f"scene={scene.manifest.path}", f"out={out}", "quiet=true",
-            "report=false", "texture.size=128", "fit.steps=30", "fit.crop=48", "fit.batch=2", "fit.rebake_at=0",
+            "report=false", "texture.size=128", "photos.scale=1", "fit.steps=30", "fit.crop=48", "fit.batch=2", "fit.rebake_at=0",
             "fit.eval_every=30", "diagnose.max_grid=128", "touchup=true", "touchup_settings.fit_steps=10",
             "touchup_settings.rebake_at=0", "touchup_settings.rounds=1", "touchup_settings.min_gain_db=-100"]
     env = {**os.environ, "PYOPENGL_PLATFORM": "egl"}
