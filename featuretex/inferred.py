@@ -25,11 +25,11 @@ def _working_resolution(per_view: dict[str, Any]) -> dict[str, str] | None:
     scales = {n: float(w["scale"]) for n, w in per_view.items() if isinstance(w, dict) and "scale" in w}
     if not scales:
         return None
-    lo, hi = min(scales.values()), max(scales.values())
     reduced = sorted(n for n, s in scales.items() if s < 1.0)
     if not reduced:
         return _item("working resolution", f"all {len(scales)} photos are worked on at their full resolution, "
                      "cropped to the object (per view: working_resolution)")
+    lo, hi = min(scales[n] for n in reduced), max(scales[n] for n in reduced)
     span = f"{lo:.2f}" if abs(hi - lo) < 0.005 else f"{lo:.2f} to {hi:.2f}"
     return _item("working resolution", f"{len(reduced)} of {len(scales)} photos are worked on reduced to {span} "
                  "of their resolution (about one photo pixel per texel) and cropped to the object "
@@ -38,7 +38,7 @@ def _working_resolution(per_view: dict[str, Any]) -> dict[str, str] | None:
 
 def inferred_items(scene: Scene, texture_size: int, size_was_given: bool, summary: dict[str, Any]) -> list[dict]:
     """The run's assumptions and automatic choices, each as {"what", "detail"}."""
-    m = scene.manifest
+    m = scene.original          # the views as written (the working views keep their names and masks)
     items = [_item(what, detail) for what, detail in m.assumed]
     if scene.up.estimated:
         items.append(_item("up axis", scene.up.detail + "; model.glb stands on it"))
@@ -47,9 +47,11 @@ def inferred_items(scene: Scene, texture_size: int, size_was_given: bool, summar
                            "model.obj carry the new UVs"))
     unmasked = [v.name for v in m.views if v.mask is None]
     if unmasked:
-        items.append(_item("masks", f"{len(unmasked)} of {len(m.views)} views have no mask ({_names(unmasked)}): "
-                           "the mesh's own outline stands for the object there, so those photos give the "
-                           "diagnosis no silhouette evidence"))
+        one = len(unmasked) == 1
+        items.append(_item("masks", f"{len(unmasked)} of {len(m.views)} views {'has' if one else 'have'} no mask "
+                           f"({_names(unmasked)}): the mesh's own outline stands for the object there, so "
+                           f"{'that photo gives' if one else 'those photos give'} the diagnosis no silhouette "
+                           "evidence"))
     if not size_was_given:
         items.append(_item("texture size", f"{texture_size} x {texture_size} texels, chosen from how many photo "
                            "pixels fall on the surface"))

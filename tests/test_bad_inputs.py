@@ -378,6 +378,8 @@ CASES: dict[str, Case] = {
     "masks_inverted": Case(_each_mask(lambda m: 255 - m), "mask", "v00", "invert the masks"),
     "images_point_at_masks": Case(_edit(lambda d: [v.update(image=v["mask"]) for v in d["views"]]), "image", "v00",
                                   "same pixels as its mask"),
+    "images_are_masks_none_given": Case(_edit(lambda d: [v.update(image=v.pop("mask")) for v in d["views"]]), "image",
+                                        "v00", "looks like a mask"),
     # --- paths ---
     "image_missing": Case(lambda f: (f / "images" / "v01.png").unlink(), "image", "v01", "not found"),
     "mask_missing": Case(lambda f: (f / "masks" / "v02.png").unlink(), "mask", "v02", "not found"),

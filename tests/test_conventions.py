@@ -214,3 +214,32 @@ def test_missing_principal_point_is_the_image_centre_and_said_so(tmp_path):
     for bad in ([0, 0, 0], [0, 1], "z"):
         with pytest.raises(InputError, match="up"):
             read_manifest(_write(tmp_path, cams, views, up=bad))
+
+
+def test_the_readme_example_poses_are_one_camera(tmp_path):
+    """The README writes one camera four ways (both axes, both pose keys): each parses to the same
+    world_to_camera, and that camera is the one the README describes - centre (0, -2, 0), looking
+    along +y, upright in a +z-up scene (image down = -z) - composed here with scipy's Rotation."""
+    import re
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    block = text.split("The same camera written four ways", 1)[1].split("```yaml", 1)[1].split("```", 1)[0]
+    poses, axes = [], None
+    for line in block.splitlines():
+        if m := re.match(r"# axes: (\w+)", line.strip()):
+            axes = m.group(1)
+        elif m := re.match(r"(world_to_camera|camera_to_world): (\[.*\])", line.strip()):
+            poses.append((axes, m.group(1), yaml.safe_load(m.group(2).split("#")[0])))
+    assert sorted((a, k) for a, k, _ in poses) == sorted((a, k) for a in ("opencv", "opengl") for k in
+                                                          ("world_to_camera", "camera_to_world"))
+    # camera axes in the world: x right = +x, y down = -z, z forward = +y (columns of camera_to_world)
+    c2w = Rotation.from_matrix(np.array([[1.0, 0, 0], [0, 0, 1], [0, -1, 0]]))
+    expected = np.eye(4)
+    expected[:3, :3] = c2w.inv().as_matrix()
+    expected[:3, 3] = -c2w.inv().apply([0.0, -2.0, 0.0])
+    for k, (ax, key, pose) in enumerate(poses):
+        cams = {"c": {"model": "pinhole", "width": W, "height": H, "fx": 80.0, "fy": 80.0, "axes": ax}}
+        views = [{"name": f"v{i}", "image": f"images/v{i}.png", "camera": "c", key: copy.deepcopy(pose)}
+                 for i in range(2)]
+        man = read_manifest(_write(_folder(tmp_path / str(k)), cams, views))
+        np.testing.assert_allclose(man.views[0].world_to_camera, expected, atol=1e-12, err_msg=f"{ax} {key}")

@@ -86,3 +86,46 @@ def test_report_lists_warnings_and_assumptions():
     page = assumptions_html(run)
     assert "v02" in page and "&lt;mask&gt;" in page and "up axis" in page and "estimated &amp; snapped" in page
     assert assumptions_html(SimpleNamespace(summary={})) == ""
+
+
+def test_one_photo_that_is_a_mask_is_a_warning(scene_dir, tmp_path):
+    """A view without a mask whose image is a black-and-white silhouette (the mask file named as the
+    photo): one view of eight is a warning naming it; the real photos (pyrender's renders of a
+    checker-textured sphere) are not taken for masks."""
+    import shutil
+
+    import yaml
+
+    folder = tmp_path / "scene"
+    shutil.copytree(scene_dir, folder)
+    doc = yaml.safe_load((folder / "scene.yaml").read_text())
+    for v in doc["views"]:
+        mask = v.pop("mask")
+        if v["name"] == "v05":
+            v["image"] = mask
+    (folder / "scene.yaml").write_text(yaml.safe_dump(doc, sort_keys=False))
+    scene = load_scene(folder / "scene.yaml")
+    assert len(scene.warnings) == 1 and "v05" in scene.warnings[0] and "looks like a mask" in scene.warnings[0]
+
+
+def test_inferred_lists_what_the_run_decided():
+    """summary.json's `inferred`: estimated up, generated atlas, views without masks (from the views as
+    written), an automatic texture size, the working resolution summed up from its per-view record."""
+    from featuretex.inferred import inferred_items
+
+    views = [SimpleNamespace(name=f"v{i}", mask=None if i in (2, 5) else Path("m.png")) for i in range(8)]
+    scene = SimpleNamespace(original=SimpleNamespace(views=views, assumed=(("principal point", "centre"),)),
+                            up=SimpleNamespace(estimated=True, detail="up [0, 0, 1] estimated"),
+                            mesh=SimpleNamespace(uv_generated=True))
+    wr = {v.name: {"scale": 0.25 if i < 6 else 1.0} for i, v in enumerate(views)}
+    items = {i["what"]: i["detail"] for i in inferred_items(scene, 512, False, {"working_resolution": wr})}
+    assert list(items) == ["principal point", "up axis", "UV atlas", "masks", "texture size", "working resolution"]
+    assert items["masks"].startswith("2 of 8 views have no mask (v2, v5)")
+    assert "512 x 512" in items["texture size"] and items["working resolution"].startswith("6 of 8 photos")
+    assert "0.25 of their resolution" in items["working resolution"]
+    scene.up.estimated, scene.mesh.uv_generated = False, False
+    scene.original.views[2].mask = Path("m.png")
+    items = {i["what"]: i["detail"] for i in inferred_items(scene, 512, True, {"working_resolution": {"v0": {"scale": 1.0}}})}
+    assert list(items) == ["principal point", "masks", "working resolution"]
+    assert items["masks"].startswith("1 of 8 views has no mask (v5)") and "that photo gives" in items["masks"]
+    assert items["working resolution"].startswith("all 1 photos are worked on at their full resolution")

@@ -14,7 +14,7 @@ from featuretex.scene.images import (decode_levels, header_size, load_mask, load
                                      verify_image)
 from featuretex.scene.manifest import Manifest, View, read_manifest
 from featuretex.scene.mesh import SceneMesh, load_mesh
-from featuretex.scene.sanity import check_scene, coarse_mask, photo_is_mask
+from featuretex.scene.sanity import IMAGE_HINT, check_scene, coarse_mask, photo_is_mask, two_level_light
 from featuretex.scene.up import UpAxis, scene_up
 
 PHOTO_CACHE_BYTES = 1 << 30  # decoded photos kept in memory; older ones are decoded again when asked for
@@ -90,9 +90,9 @@ def load_scene(path: str | Path) -> Scene:
     the scene as a whole is checked (featuretex.scene.sanity) before any expensive stage.
     """
     man = read_manifest(path)
-    masks = check_images(man)
+    masks, light = check_images(man)
     mesh = load_mesh(man.mesh, str(man.path))
-    warnings = check_scene(man, mesh, masks)
+    warnings = check_scene(man, mesh, masks, light)
     return Scene(manifest=man, mesh=mesh, warnings=warnings)
 
 
@@ -101,16 +101,18 @@ def _lossless(p: Path) -> bool:
     return p.suffix.lower() in (".png", ".tif", ".tiff", ".bmp", ".gif")
 
 
-def check_images(man: Manifest) -> dict[str, np.ndarray]:
+def check_images(man: Manifest) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
     """Every photo and mask decodes, is upright the camera's width x height, a mask is not empty and
-    a photo is not its mask. Returns each view's mask reduced for the scene checks (by view name,
-    featuretex.scene.sanity.coarse_mask).
+    a photo is not its mask. Returns, by view name and reduced for the scene checks
+    (featuretex.scene.sanity.coarse_mask): each view's mask, and for a view without one the light
+    pixels of its photo when that holds only black and white (a mask named as the photo).
 
     The header is read first, so an image far larger than its camera is refused before decoding.
     Photos are decoded and dropped (pixels are read again when a stage asks for them).
     """
     file = str(man.path)
-    coarse: dict[str, np.ndarray] = {}
+    masks: dict[str, np.ndarray] = {}
+    light: dict[str, np.ndarray] = {}
     for v in man.views:
         want = (v.camera.width, v.camera.height)
         for fld, p in (("image", v.image), ("mask", v.mask)):
@@ -122,13 +124,14 @@ def check_images(man: Manifest) -> dict[str, np.ndarray]:
                                   f"'{v.camera.id}' is {want[0]}x{want[1]}", view=v.name, field=fld,
                                   hint="fix the camera's width/height or use the original photo")
         mask = load_mask(v.mask, file, v.name, want)
-        if mask is not None and _lossless(v.image):
+        if not _lossless(v.image):
+            verify_image(v.image, file, v.name, "image")
+        elif mask is not None:
             if photo_is_mask(decode_levels(v.image, file, v.name, "image"), mask):
                 raise input_error(file, f"the photo '{v.image.name}' holds the same pixels as its mask "
-                                  f"'{v.mask.name}'", view=v.name, field="image",
-                                  hint="'image' must name the photo; does the image list point at the mask files?")
-        else:
-            verify_image(v.image, file, v.name, "image")
+                                  f"'{v.mask.name}'", view=v.name, field="image", hint=IMAGE_HINT)
+        elif (white := two_level_light(decode_levels(v.image, file, v.name, "image"))) is not None:
+            light[v.name] = coarse_mask(v, white)
         if mask is not None:
-            coarse[v.name] = coarse_mask(v, mask)
-    return coarse
+            masks[v.name] = coarse_mask(v, mask)
+    return masks, light

@@ -29,6 +29,8 @@ AREA_FACTOR = 4.0          # projected mesh area vs mask area: beyond this facto
 DOT = 2e-4                 # a mesh covering less than this share of the image projects to a dot
 MAJORITY = 0.5             # evidence against more than this share of the views stops the run
 CLUSTER = 0.01             # camera centres within this share of the mesh size count as one point
+TWO_LEVEL = 0.99           # share of pure black or white pixels that makes an image a mask
+MASK_LIKE_IOU = 0.7        # a black-and-white photo whose white overlaps the mesh this well is a mask
 
 
 @dataclass(frozen=True)
@@ -162,9 +164,18 @@ def looks_inverted(cover: np.ndarray, mask: np.ndarray) -> bool:
     return (_border(mask) > 0.5 > _border(c)) and _iou(c, 1 - mask) > _iou(c, mask) + 0.2
 
 
-def silhouette_finding(view: View, cover: np.ndarray, mask: np.ndarray | None, unit: str) -> Finding | None:
-    """Compare one view's coarse mesh silhouette (h, w) bool with its coarse mask (h, w) float 0..1."""
+IMAGE_HINT = "'image' must name the photo; does the image list point at the mask files?"
+
+
+def silhouette_finding(view: View, cover: np.ndarray, mask: np.ndarray | None, unit: str,
+                       light: np.ndarray | None = None) -> Finding | None:
+    """Compare one view's coarse mesh silhouette (h, w) bool with its coarse mask (h, w) float 0..1;
+    without a mask, with the coarse light pixels (h, w) float 0..1 of a photo that holds only black
+    and white (`two_level_light`), if it is one."""
     area = float(cover.mean())
+    if mask is None and light is not None and _iou(cover.astype(np.float32), light) > MASK_LIKE_IOU:
+        return Finding("mask_as_photo", view.name, "image", "the photo is black and white only, white where "
+                       "the mesh is: it looks like a mask", IMAGE_HINT)
     if mask is None:
         if area < DOT:
             return Finding("dot", view.name, view.pose_key, f"the mesh covers {100 * area:.2g}% of the photo",
@@ -187,17 +198,27 @@ def silhouette_finding(view: View, cover: np.ndarray, mask: np.ndarray | None, u
     return None
 
 
-def photo_is_mask(levels: np.ndarray, mask: np.ndarray) -> bool:
-    """A two-level photo whose light pixels are its mask's object: the image names the mask file."""
+def two_level_light(levels: np.ndarray) -> np.ndarray | None:
+    """(H, W, C) uint8/uint16 code values -> (H, W) bool light pixels when the image holds only black
+    and white (at least TWO_LEVEL of its pixels), as a mask does and no photo of an object does; else None."""
     top = np.iinfo(levels.dtype).max
     grey = levels[..., :3].mean(axis=2) if levels.shape[2] >= 3 else levels[..., 0].astype(np.float64)
-    two_level = np.mean((grey == 0) | (grey == top)) >= 0.99
-    return bool(two_level and np.mean((grey >= top / 2) == mask) >= 0.99)
+    if np.mean((grey == 0) | (grey == top)) < TWO_LEVEL:
+        return None
+    return grey >= top / 2
 
 
-def check_silhouettes(man: Manifest, mesh: SceneMesh, masks: dict[str, np.ndarray]) -> list[str]:
-    """Per view, the coarse mesh silhouette against the coarse mask (`coarse_mask`, by view name;
-    a view without one is checked against a dot).
+def photo_is_mask(levels: np.ndarray, mask: np.ndarray) -> bool:
+    """A two-level photo whose light pixels are its mask's object: the image names the mask file."""
+    light = two_level_light(levels)
+    return light is not None and bool(np.mean(light == mask) >= TWO_LEVEL)
+
+
+def check_silhouettes(man: Manifest, mesh: SceneMesh, masks: dict[str, np.ndarray],
+                      light: dict[str, np.ndarray] | None = None) -> list[str]:
+    """Per view, the coarse mesh silhouette against the coarse mask (`coarse_mask`, by view name);
+    a view without one against the light pixels of its photo when that is black and white only
+    (`light`, coarse, by view name), else against a dot.
 
     Raises when more than MAJORITY of the views show the same kind of evidence; returns one warning
     line per view otherwise.
@@ -205,14 +226,15 @@ def check_silhouettes(man: Manifest, mesh: SceneMesh, masks: dict[str, np.ndarra
     from featuretex.raster.embree import EmbreeRasteriser
 
     caster = EmbreeRasteriser(mesh)
-    findings = [silhouette_finding(v, caster.render(coarse_view(v))["tri"] >= 0, masks.get(v.name), man.unit)
-                for v in man.views]
+    light = light or {}
+    findings = [silhouette_finding(v, caster.render(coarse_view(v))["tri"] >= 0, masks.get(v.name), man.unit,
+                                   light.get(v.name)) for v in man.views]
     return settle([f for f in findings if f], len(man.views), len(masks), str(man.path))
 
 
 def settle(findings: Sequence[Finding], n_views: int, n_masked: int, file: str) -> list[str]:
     """Stop on the kind of evidence most views share; the rest become warnings."""
-    for kind in ("inverted", "small", "large", "dot"):
+    for kind in ("mask_as_photo", "inverted", "small", "large", "dot"):
         of_kind = [f for f in findings if f.kind == kind]
         pool = n_masked if kind in ("inverted", "small", "large") else n_views - n_masked
         if of_kind and len(of_kind) > MAJORITY * pool:
@@ -222,12 +244,14 @@ def settle(findings: Sequence[Finding], n_views: int, n_masked: int, file: str) 
     return [f"view '{f.view}', field '{f.field}': {f.what} ({f.hint})" for f in findings]
 
 
-def check_scene(man: Manifest, mesh: SceneMesh, masks: dict[str, np.ndarray]) -> list[str]:
-    """Every check of this module, cheapest first (`masks`: coarse masks by view name, `coarse_mask`).
+def check_scene(man: Manifest, mesh: SceneMesh, masks: dict[str, np.ndarray],
+                light: dict[str, np.ndarray] | None = None) -> list[str]:
+    """Every check of this module, cheapest first (`masks`: coarse masks by view name, `coarse_mask`;
+    `light`: the same of black-and-white-only photos of views without a mask, `two_level_light`).
     Raises InputError; returns warning lines."""
     check_poses_see_mesh(man, mesh)
     check_centres_spread(man, mesh)
-    warnings = check_silhouettes(man, mesh, masks)
+    warnings = check_silhouettes(man, mesh, masks, light)
     for w in warnings:
         log.warning("%s: %s", man.path, w)
     return warnings
