@@ -43,6 +43,7 @@ from __future__ import annotations
 import os
 import re
 import tempfile
+from importlib import resources
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -99,7 +100,7 @@ def check_argv(argv: list[str]) -> None:
         check_value(key, value, CLI_FILE)
         if key == "hydra.searchpath":
             dirs += _searchpath_dirs(value)
-    roots = [PACKAGE_DIR / "conf"] + [d for d, _ in dirs]
+    roots = [Path(str(resources.files("featuretex.conf")))] + [d for d, _ in dirs]
     for key, value, group in overrides:
         is_group = "/" in group or any((r / group).is_dir() for r in roots)
         if is_group and isinstance(value, str) and _escapes(value):

@@ -1,0 +1,1 @@
+"""Hydra configuration files of featuretex (installed as the subpackage featuretex.conf)."""
