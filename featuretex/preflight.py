@@ -19,6 +19,7 @@ given to Hydra as `out=`, so the run folder is always `out`.
 from __future__ import annotations
 
 import copy
+import importlib.util
 import re
 import time
 from dataclasses import dataclass
@@ -73,6 +74,9 @@ def prepare(arguments: Arguments) -> Plan:
     from featuretex.safety import check_composed
 
     register()
+    if importlib.util.find_spec("featuretex.conf") is None:
+        raise InputError("the configuration package featuretex.conf is not installed (the configs live in conf/ "
+                         "at the top of the repository: run make install, or pip install -e . again)")
     try:
         hydra, args = _hydra(arguments.argv)
         name = args.config_name or CONFIG_NAME

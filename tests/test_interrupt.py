@@ -135,6 +135,7 @@ def test_sigkill_mid_export_leaves_no_half_file_and_rerun_matches(reference, tmp
 
     resumed = _run(scene, out)
     assert _figures(resumed) == _figures(summary)
+    assert resumed["fit"] == summary["fit"] == {"steps": 60, "stopped": "steps"}   # the fit's own ending
     for name in OUTPUTS:
         assert (out / name).read_bytes() == (whole / name).read_bytes(), name
     assert not list(out.rglob("*.partial-*")), "the re-run removes what the killed writer left"

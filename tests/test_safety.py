@@ -216,3 +216,22 @@ def test_allow_list_is_exact(tmp_path):
     for target in ("featuretex.atomic.write_text", "hydra_plugins.anything.Else", "featuretex.batch.BatchIndexX"):
         with pytest.raises(InputError, match="refused"):
             check_argv([f"+hydra.callbacks.w={{_target_:{target}}}"])
+
+
+def test_batch_file_with_a_featuretex_function_as_callback_is_refused(tmp_path):
+    """A batch file passed on by someone else: a callback naming featuretex's own atomic writer
+    would write a file of their choosing; only the exact allow-list passes."""
+    bad = _write(tmp_path, "batch.yaml", """\
+        defaults:
+          - featuretex
+          - _self_
+        hydra:
+          callbacks:
+            w:
+              _target_: featuretex.atomic.write_text
+              target: somewhere.txt
+              text: x
+        """)
+    with pytest.raises(InputError) as e:
+        check_argv(["--config-dir", str(tmp_path), "--config-name", "batch"])
+    assert str(bad) in str(e.value) and "hydra.callbacks.w._target_" in str(e.value)
