@@ -22,7 +22,6 @@ from featuretex.report import errormap, plots, turntable
 from featuretex.report.html import write_report
 from featuretex.report.inline import num
 from featuretex.report.verdicts import describe
-from test_report_fixtures import make_run_dir
 
 
 # ---------------------------------------------------------------------------------------------
@@ -218,19 +217,33 @@ def _tree_hashes(folder: Path, skip: set[str]) -> dict[str, str]:
             for p in sorted(folder.rglob("*")) if p.is_file() and p.name not in skip}
 
 
-@pytest.fixture(scope="module")
-def complete_run(tmp_path_factory) -> Path:
-    return make_run_dir(tmp_path_factory.mktemp("full"), complete=True)
+def test_the_pipeline_writes_everything_the_report_reads(pipeline_run):
+    """The report tests run on what the command really wrote: every file the report reads is there,
+    with held-out renders and scores of every method and a fit history."""
+    from featuretex.report.rundir import ARTEFACTS, METHODS
+
+    assert [f for f in ARTEFACTS if not (pipeline_run / f).is_file()] == []
+    summary = json.loads((pipeline_run / "summary.json").read_text())
+    views = list(summary["heldout_per_view"]["baseline"])
+    assert views
+    for m in METHODS:
+        assert summary["heldout"][m]["psnr"] is not None, m
+        assert list(summary["heldout_per_view"][m]) == views, m
+        for v in views:
+            assert (pipeline_run / "heldout" / f"{v}_{m}.png").is_file(), (v, m)
+    history = json.loads((pipeline_run / "fit" / "history.json").read_text())
+    assert history["step"] and history["train"]["step"]
+    assert summary["verdict"] in ("rescan", "fix-geometry", "refine-texture", "ready")
 
 
-def test_report_is_self_contained_and_shows_the_summary(complete_run):
-    before = _tree_hashes(complete_run, {"report.html", "turntable.png"})
-    page_path = write_report(complete_run)
-    assert page_path == complete_run / "report.html"
-    assert _tree_hashes(complete_run, {"report.html", "turntable.png"}) == before      # inputs untouched
-    assert not list(complete_run.glob(".report.html.*"))                              # atomic: no temp left
+def test_report_is_self_contained_and_shows_the_summary(pipeline_run):
+    before = _tree_hashes(pipeline_run, {"report.html", "turntable.png"})
+    page_path = write_report(pipeline_run)
+    assert page_path == pipeline_run / "report.html"
+    assert _tree_hashes(pipeline_run, {"report.html", "turntable.png"}) == before      # inputs untouched
+    assert not list(pipeline_run.glob(".report.html.*"))                              # atomic: no temp left
     page = _parse(page_path)
-    summary = json.loads((complete_run / "summary.json").read_text())
+    summary = json.loads((pipeline_run / "summary.json").read_text())
     # nothing is fetched: images are data URIs, links are files beside the report
     for u in page.urls:
         assert not u.lower().startswith(("http:", "https:", "//", "ftp:")), u
@@ -239,26 +252,26 @@ def test_report_is_self_contained_and_shows_the_summary(complete_run):
         with Image.open(io.BytesIO(base64.b64decode(img["src"].split(",", 1)[1]))) as im:
             im.load()
     for href in page.links:
-        assert (complete_run / href).is_file(), href
+        assert (pipeline_run / href).is_file(), href
     assert describe(summary["verdict"])[0] in page.text
     for reason in summary["reasons"]:
         assert reason in page.text
     for view, s in summary["heldout_per_view"]["baseline"].items():
         assert f"View {view}" in page.text
         assert f"PSNR {num(s['psnr'], 2, ' dB')}" in page.text and f"SSIM {num(s['ssim'], 3)}" in page.text
-    with Image.open(complete_run / "turntable.png") as im:
+    with Image.open(pipeline_run / "turntable.png") as im:
         assert im.is_animated
     assert {"verdict", "heldout", "errormap", "turntable", "curves", "textures", "timings", "config"} <= page.ids
     assert "missing" not in page.ids                     # every artefact the report reads is there
-    config = (complete_run / ".hydra" / "config.yaml").read_text()
+    config = (pipeline_run / ".hydra" / "config.yaml").read_text()
     assert all(line.strip() in page.text for line in config.splitlines()[:5])   # the exact config is shown
 
 
-def test_report_of_a_partial_run_names_what_is_missing(complete_run, tmp_path):
+def test_report_of_a_partial_run_names_what_is_missing(pipeline_run, tmp_path):
     import shutil
 
     run = tmp_path / "run"
-    shutil.copytree(complete_run, run)
+    shutil.copytree(pipeline_run, run)
     gone = ["model.glb", "error_map.npz", "fit/history.json"]
     for f in gone:
         (run / f).unlink()

@@ -19,7 +19,7 @@ from pathlib import Path
 import pytest
 
 from featuretex.report.verdicts import describe
-from test_report_fixtures import ARTIFACTS, make_run_dir
+from test_report_fixtures import ARTIFACTS
 
 # Debian's chromium-headless-shell renders like chromium and makes no background requests (DESIGN §7)
 BROWSER = shutil.which("chromium-headless-shell") or shutil.which("chromium")
@@ -170,10 +170,10 @@ def browser():
 
 
 @pytest.fixture(scope="module")
-def report(tmp_path_factory) -> Path:
+def report(pipeline_run) -> Path:
     from featuretex.report import write_report
 
-    return write_report(make_run_dir(tmp_path_factory.mktemp("run"), complete=True))
+    return write_report(pipeline_run)
 
 
 @pytest.mark.parametrize("layout", [("laptop", 1280, 900, False, 1.0), ("phone", 390, 844, True, 2.0)],
