@@ -21,7 +21,11 @@ demo: install
 test: install node_modules/.installed
 	$(PY) -m pytest -q
 
+# the report's three.js bundle, rebuilt from the versions package.json pins (the result is committed)
+vendor: node_modules/.installed
+	node featuretex/report/vendor/build.mjs
+
 bench: install
 	for b in benchmarks/*.py; do echo "== $$b"; $(PY) $$b || exit 1; done
 
-.PHONY: install demo test bench
+.PHONY: install demo test bench vendor

@@ -34,7 +34,9 @@ from hydra.types import RunMode
 from omegaconf import DictConfig
 
 from featuretex.atomic import write_json, write_text
-from featuretex.report.inline import esc, num, percent, seconds
+from featuretex.report import scripts
+from featuretex.report.context import PREVIEW_FILE
+from featuretex.report.inline import esc, num, percent, seconds, thumbnail_uri
 from featuretex.report.style import CSS
 from featuretex.report.verdicts import describe, rank
 
@@ -44,6 +46,7 @@ FAILED_FILE, CSV_FILE, HTML_FILE = "failed.json", "batch.csv", "batch.html"
 METHODS = ("baseline", "baked", "neural")
 AREAS = ("uncovered", "geometry_limited", "texture_limited")
 CLOCK_SLACK_S = 5.0   # a job folder written this long before the batch started still belongs to it
+THUMB_PX = 96         # the model's still in the index, pixels
 
 
 # ---------------------------------------------------------------------------------------------
@@ -64,6 +67,7 @@ class JobRow:
     timings: dict[str, float] = field(default_factory=dict)
     overrides: list[str] = field(default_factory=list)
     report: str | None = None         # report.html relative to the sweep folder
+    preview: str | None = None        # a small still of the delivered model (data URI), if the report made one
     log: str | None = None            # the job's log file, relative to the sweep folder
     error: str | None = None
 
@@ -121,6 +125,11 @@ def read_job(job_dir: Path, sweep_dir: Path) -> JobRow:
     scene = str((failed or summary or {}).get("scene") or _override_value(overrides, "scene") or "")
     row = JobRow(job=rel, scan=scan_name(overrides, scene, rel), status="done", scene=scene,
                  overrides=overrides, report=report_rel, log=log_rel)
+    if (job_dir / PREVIEW_FILE).is_file():
+        try:
+            row.preview = thumbnail_uri(job_dir / PREVIEW_FILE, THUMB_PX)[0]
+        except OSError as e:   # a damaged preview only costs the picture
+            log.warning("batch: %s unreadable (%s)", job_dir / PREVIEW_FILE, e)
     if failed is not None or summary is None:
         row.status = "failed"
         row.error = (failed or {}).get("error") or "the job stopped before writing summary.json (see its log)"
@@ -210,45 +219,61 @@ def _counts_html(rows: list[JobRow]) -> str:
     return " ".join(parts)
 
 
-def _row_html(r: JobRow) -> str:
+def _key(v: float | None) -> str:
+    """A sort key for a number cell (empty: sorts after every number)."""
+    return "" if v is None or not math.isfinite(float(v)) else repr(float(v))
+
+
+def _row_html(r: JobRow, order: int) -> str:
     name = f'<a href="{esc(r.report)}">{esc(r.scan)}</a>' if r.report else esc(r.scan)
     logl = f' · <a href="{esc(r.log)}">log</a>' if r.log else ""
     sub = f'<div class="note">folder {esc(r.job)}{logl}</div>'
+    pic = f'<img class="thumb" src="{r.preview}" alt="{esc(r.scan)}, delivered model">' if r.preview else ""
+    thumb = f'<td data-key="{order}">' + (f'<a href="{esc(r.report)}" tabindex="-1">{pic}</a>' if r.report and pic
+                                          else pic) + "</td>"
+    state = f'<td data-key="{rank(r.state)}">{_chip(r.state)}'
     if r.status == "failed":
-        return (f"<tr><td>{name}{sub}</td><td>{_chip('failed')}</td>"
+        return (f"<tr>{thumb}<td>{name}{sub}</td>{state}</td>"
                 f'<td colspan="7">{esc(r.error)}</td></tr>')
     why = esc(r.reasons[0]) + (f' <span class="note">(+{len(r.reasons) - 1} more)</span>'
                                if len(r.reasons) > 1 else "") if r.reasons else ""
-    areas = "".join(f'<td class="n">{percent(r.areas.get(a)) if r.areas.get(a) is not None else "—"}</td>'
-                    for a in AREAS)
+    areas = "".join(f'<td class="n" data-key="{_key(r.areas.get(a))}">'
+                    f'{percent(r.areas.get(a)) if r.areas.get(a) is not None else "—"}</td>' for a in AREAS)
     base = r.psnr.get("baseline")
     psnr = []
     for m in METHODS:
         v = r.psnr.get(m)
         gain = (f'<div class="note">{float(v) - float(base):+.2f}</div>'
                 if m != "baseline" and v is not None and base is not None else "")
-        psnr.append(f'<td class="n">{num(v, 2)}{gain}</td>')
-    return (f"<tr><td>{name}{sub}</td><td>{_chip(r.state)}<div class=\"note\">{why}</div></td>{areas}"
-            f'{"".join(psnr)}<td class="n">{seconds(r.timings.get("total"))}</td></tr>')
+        psnr.append(f'<td class="n" data-key="{_key(v)}">{num(v, 2)}{gain}</td>')
+    total = r.timings.get("total")
+    return (f'<tr>{thumb}<td>{name}{sub}</td>{state}<div class="note">{why}</div></td>{areas}'
+            f'{"".join(psnr)}<td class="n" data-key="{_key(total)}">{seconds(total)}</td></tr>')
+
+
+HEADINGS = (("", ""), ("scan", ""), ("verdict", ""), ("uncovered", "n"), ("geometry-limited", "n"),
+            ("texture-limited", "n"), ("classical dB", "n"), ("delivered dB", "n"), ("neural dB", "n"),
+            ("time", "n"))
 
 
 def batch_html(rows: list[JobRow], sweep_dir: Path) -> str:
-    head = ("<tr><th>scan</th><th>verdict</th><th class=\"n\">uncovered</th>"
-            "<th class=\"n\">geometry-limited</th><th class=\"n\">texture-limited</th>"
-            "<th class=\"n\">classical dB</th><th class=\"n\">baked dB</th><th class=\"n\">neural dB</th>"
-            "<th class=\"n\">time</th></tr>")
-    body = "".join(_row_html(r) for r in rows) or '<tr><td colspan="9">no jobs found</td></tr>'
+    sorter = scripts.asset("js/sort.js")
+    head = "".join(f'<th class="{c}" data-sort><button type="button">{esc(h)}</button></th>' if h else "<th></th>"
+                   for h, c in HEADINGS)
+    body = "".join(_row_html(r, k) for k, r in enumerate(rows)) or \
+        f'<tr><td colspan="{len(HEADINGS)}">no jobs found</td></tr>'
     return ("<!doctype html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             '<meta name="viewport" content="width=device-width, initial-scale=1">'
-            "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; style-src 'unsafe-inline'\">"
+            f'<meta http-equiv="Content-Security-Policy" content="{scripts.policy([sorter])}">'
             f"<title>Batch: {len(rows)} scans</title><style>{CSS}</style></head><body><main>"
             f'<header class="top"><h1>Batch of {len(rows)} scan{"s" if len(rows) != 1 else ""}</h1>'
             f'<span class="meta">{esc(sweep_dir)} · {time.strftime("%Y-%m-%d %H:%M")}</span></header>'
-            f'<section><p>{_counts_html(rows)}</p><p class="note">Scans that need the most work come first. '
-            "Areas are shares of each scan's surface; dB is the held-out PSNR (higher is better), with the "
-            "gain over the classical bake below it. The scan name opens its report.</p>"
-            f'<div class="scroll"><table><thead>{head}</thead><tbody>{body}</tbody></table></div>'
-            f"</section></main></body></html>\n")
+            f'<section><p>{_counts_html(rows)}</p><p class="note">Scans that need the most work come first; click '
+            "a column heading to sort by it. Areas are shares of each scan's surface; dB is the held-out PSNR "
+            "(higher is better), with the gain over the classical bake below it. The scan name or its picture "
+            "opens its report.</p>"
+            f'<div class="scroll"><table class="sortable"><thead><tr>{head}</tr></thead><tbody>{body}</tbody>'
+            f"</table></div></section></main>{scripts.tags([sorter])}</body></html>\n")
 
 
 def write_batch_index(sweep_dir: Path, since: float | None = None) -> tuple[Path, Path]:

@@ -37,7 +37,7 @@ class FeaturetexConfig:
     bake: BakeConfig = field(default_factory=BakeConfig)
     export: ExportConfig = field(default_factory=ExportConfig)
     diagnose: DiagnoseConfig = field(default_factory=DiagnoseConfig)
-    report: bool = True           # write report.html (with turntable previews)
+    report: bool = True           # write report.html (with error_map_views.png and preview.png)
     touchup: bool = False         # move the surface where the diagnosis is confident, re-fit, re-bake (touchup/)
     touchup_settings: TouchupConfig = field(default_factory=TouchupConfig)
 

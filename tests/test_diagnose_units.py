@@ -12,7 +12,7 @@ import trimesh
 
 from featuretex.diagnose.alignment import (ViewCorrection, alignment_evidence, field_at,
                                            projection_jacobian)
-from featuretex.diagnose.classify import FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED
+from featuretex.diagnose.classify import CAVITY, FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED
 from featuretex.diagnose.consistency import Samples, loo_ncc
 from featuretex.diagnose.exposure import exposure
 from featuretex.diagnose.grid import resample_to
@@ -84,9 +84,30 @@ def test_class_colours_differ_in_lightness():
     from skimage.color import rgb2lab
 
     L = {c: rgb2lab(np.array(rgb, float)[None, None] / 255.0)[0, 0, 0] for c, rgb in COLOURS.items()}
-    order = [OFF, FINE, GEOMETRY, TEXTURE, UNCOVERED]
+    order = [OFF, FINE, GEOMETRY, TEXTURE, CAVITY, UNCOVERED]
     steps = np.diff([L[c] for c in order])
     assert np.all(steps < -12), {c: round(L[c], 1) for c in order}
+
+
+def test_cavities_are_their_own_class_and_the_least_severe_problem():
+    from skimage.measure import block_reduce
+
+    from featuretex.diagnose.classify import area_fractions, classify, from_severity, severity
+
+    valid = np.array([[True, True, True, True, False]])
+    coverage = np.array([[0, 1, 0, 5, np.nan]], np.float32)
+    geometry = np.array([[0, 0, 0, 0.9, np.nan]], np.float32)
+    hidden = np.array([[True, False, False, True, False]])
+    cls = classify(valid, coverage, geometry, np.zeros_like(geometry), min_views=2, min_region=1, hidden=hidden)
+    # too few views + in a cavity -> cavity; too few views outside -> uncovered; well seen -> its own class
+    assert cls.tolist() == [[CAVITY, UNCOVERED, UNCOVERED, GEOMETRY, OFF]]
+    a = area_fractions(cls, np.array([[1.0, 2.0, 3.0, 4.0, 0.0]]))
+    assert a == pytest.approx({"uncovered": 0.6, "uncovered_hidden": 0.1, "geometry_limited": 0.4,
+                               "texture_limited": 0.0})
+    # pooling keeps the most severe class: any problem outranks a cavity, a cavity outranks fine
+    blocks = np.array([[CAVITY, FINE, CAVITY, TEXTURE, UNCOVERED, CAVITY, OFF, FINE]], np.uint8)
+    pooled = from_severity(block_reduce(severity(blocks), (1, 2), np.max))   # scikit-image pools
+    assert pooled.tolist() == [[CAVITY, TEXTURE, UNCOVERED, FINE]]
 
 
 def test_exposure_at_bottom_of_a_tube_is_the_cone_solid_angle():

@@ -1,6 +1,8 @@
 """The per-run report and its parts: regions against scikit-image, texel areas against trimesh,
-turntable frames against trimesh's own (non-Embree) ray caster, curves against matplotlib's
-artists, and the page itself: self-contained, every number from summary.json, missing parts named."""
+stills of the model against trimesh's own (non-Embree) ray caster, details against a brute-force
+window mean, the page's legend against the pictures' legends (OpenCV template matching), curves
+against matplotlib's artists, and the page itself: self-contained, every number from
+summary.json, missing parts named."""
 
 from __future__ import annotations
 
@@ -18,7 +20,7 @@ import trimesh
 from PIL import Image
 
 from featuretex.diagnose.classify import FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED
-from featuretex.report import errormap, plots, turntable
+from featuretex.report import errormap, plots
 from featuretex.report.html import write_report
 from featuretex.report.inline import num
 from featuretex.report.verdicts import describe
@@ -83,7 +85,8 @@ def test_classify_without_cls_follows_the_diagnosis_rule():
     assert cls.tolist() == [[UNCOVERED, UNCOVERED, GEOMETRY, TEXTURE, GEOMETRY, FINE]]
 
 
-def _sphere_glb(path: Path, texture: Image.Image) -> trimesh.Trimesh:
+def _sphere_glb(path: Path, texture: Image.Image, frame: np.ndarray | None = None) -> trimesh.Trimesh:
+    """A textured sphere (scene frame) written as model.glb with `frame` as its scene -> glTF matrix."""
     from featuretex import synth
     from featuretex.export.gltf import write_glb
     from featuretex.scene.mesh import load_mesh
@@ -92,15 +95,16 @@ def _sphere_glb(path: Path, texture: Image.Image) -> trimesh.Trimesh:
     synth.write_mesh_obj(path.with_suffix(".obj"), tm)
     buf = io.BytesIO()
     texture.save(buf, format="PNG")
-    write_glb(path, load_mesh(path.with_suffix(".obj"), "test"), buf.getvalue())
+    write_glb(path, load_mesh(path.with_suffix(".obj"), "test"), buf.getvalue(), gltf_from_scene=frame)
     return tm
 
 
 def test_texel_areas_add_up_to_the_mesh_area(tmp_path):
     from featuretex import synth
+    from featuretex.export.gltf import read_glb_mesh
 
     tm = _sphere_glb(tmp_path / "m.glb", synth.checker_texture(64, 4))
-    lay = errormap.layout_from_model(tmp_path / "m.glb", 256)
+    lay = errormap.layout_of(read_glb_mesh(tmp_path / "m.glb")[0], 256)
     # trimesh's own triangle areas are the reference; texel sampling of the UV charts is exact
     # to about a texel along chart borders (here under 1 %)
     assert lay.area.sum() == pytest.approx(tm.area, rel=0.01)
@@ -108,55 +112,119 @@ def test_texel_areas_add_up_to_the_mesh_area(tmp_path):
 
 
 # ---------------------------------------------------------------------------------------------
-# turntable
+# stills of the model, the error map on it, details to look closer at
 # ---------------------------------------------------------------------------------------------
-def test_turntable_frames_match_an_independent_ray_caster(tmp_path):
+# a frame that is not the identity: scene z up -> glTF +Y up, centimetres -> metres, shifted
+FRAME = np.array([[0.01, 0, 0, 0.05], [0, 0, 0.01, -0.02], [0, -0.01, 0, 0.03], [0, 0, 0, 1.0]])
+
+
+def test_stills_match_an_independent_ray_caster(tmp_path):
     from featuretex import synth
+    from featuretex.report import stills
 
     tex = synth.checker_texture(64, 4, colours=((240, 40, 30), (20, 60, 200)))
-    tm = _sphere_glb(tmp_path / "m.glb", tex)
-    model = turntable.load_model(tmp_path / "m.glb")
-    size = 128
-    centre, radius = turntable.bounding_sphere(model)
-    assert centre == pytest.approx([0.1, -0.2, 0.3], abs=1e-6) and radius == pytest.approx(0.4, rel=1e-6)
-    cams = turntable.orbit(centre, radius, np.array([0.0, 0.0, 1.0]), 4, front=np.array([1.0, 0, 0]))
-    frames = turntable.render_frames(model, cams, size)
-    caster = trimesh.ray.ray_triangle.RayMeshIntersector(tm)   # trimesh's pure-numpy caster, not Embree
-    t = math.tan(cams.yfov / 2)
-    j, i = np.meshgrid(np.arange(size) + 0.5, np.arange(size) + 0.5)
-    # OpenGL perspective camera (gluPerspective): pixel centre -> direction in camera axes, -z forward
-    d_cam = np.stack([(2 * j / size - 1) * t, (1 - 2 * i / size) * t, -np.ones_like(i)], -1).reshape(-1, 3)
-    img = np.asarray(tex, np.uint8)
-    for pose, frame in zip(cams.poses, frames):
-        dirs = d_cam @ pose[:3, :3].T
-        origins = np.broadcast_to(pose[:3, 3], dirs.shape)
-        loc, ray, tri = caster.intersects_location(origins, dirs, multiple_hits=False)
-        hit = np.zeros(size * size, bool)
+    tm = _sphere_glb(tmp_path / "m.glb", tex, frame=FRAME)
+    model = stills.load_model(tmp_path / "m.glb")
+    world = trimesh.Trimesh(trimesh.transform_points(tm.vertices, FRAME), tm.faces, process=False)
+    assert model.centre == pytest.approx(world.bounds.mean(axis=0), abs=1e-9)
+    caster = trimesh.ray.ray_triangle.RayMeshIntersector(world)   # trimesh's pure-numpy caster, not Embree
+    size, img = 48, np.asarray(tex, np.uint8)
+    for name, towards, up in stills.SIX_VIEWS:
+        cast = stills.Caster(model).cast(towards, up, size, half=model.half)
+        # the same orthographic rays, built here from the definition: a (2 size)^2 grid over the
+        # bounding box's longest side (x 1.04), looking from `towards`, `up` at the top of the picture
+        back = np.asarray(towards, float)
+        right = np.cross(up, back)
+        n, half = 2 * size, 1.04 * np.abs(world.vertices - model.centre).max()
+        t = ((np.arange(n) + 0.5) / n * 2 - 1) * half
+        x, y = np.meshgrid(t, -t)
+        origins = (model.centre + x[..., None] * right + y[..., None] * np.asarray(up, float)
+                   + 2 * model.radius * back).reshape(-1, 3)
+        loc, ray, tri = caster.intersects_location(origins, np.broadcast_to(-back, origins.shape), multiple_hits=False)
+        hit = np.zeros(n * n, bool)
         hit[ray] = True
-        drawn = frame[..., 3].reshape(-1) >= 128
-        iou = (hit & drawn).sum() / (hit | drawn).sum()
-        assert iou > 0.95, iou        # only silhouette pixels (4x MSAA) may differ
-        # unlit: the texture byte at the hit's uv (v up -> image row from the top), nearest texel
-        bary = trimesh.triangles.points_to_barycentric(tm.triangles[tri], loc)
+        ours = cast.tri.reshape(-1) >= 0
+        assert (hit & ours).sum() / (hit | ours).sum() > 0.99, name       # only grazing rays may differ
+        both = ours[ray]
+        bary = trimesh.triangles.points_to_barycentric(world.triangles[tri], loc)
         uv = np.einsum("nk,nkd->nd", bary, tm.visual.uv[tm.faces[tri]])
-        px = img[np.clip(((1 - uv[:, 1]) * 64).astype(int), 0, 63), np.clip((uv[:, 0] * 64).astype(int), 0, 63)]
-        got = frame[..., :3].reshape(-1, 3)[ray]
-        close = np.abs(got.astype(int) - px.astype(int)).max(axis=1) <= 40
-        # measured 0.90 (misses only next to checker edges: mipmap filtering); a v flip scores 0.0
-        assert close.mean() > 0.85, close.mean()
+        want = img[np.clip(((1 - uv[:, 1]) * 64).astype(int), 0, 63), np.clip((uv[:, 0] * 64).astype(int), 0, 63)]
+        r, c = stills.texel_at(cast.uv.reshape(-1, 2)[ray], 64)
+        # nearest texel of the same texture at the same UV (checker edges may fall either side)
+        assert (img[r, c] == want).all(axis=1)[both].mean() > 0.97, name
 
 
-def test_animation_holds_every_frame(tmp_path):
-    rng = np.random.default_rng(1)
-    frames = [rng.integers(0, 256, (16, 16, 4), dtype=np.uint8) for _ in range(5)]
-    for f in frames:
-        f[..., 3] = 255
-    turntable.write_animation(tmp_path / "t.png", frames)
-    with Image.open(tmp_path / "t.png") as im:   # Pillow's APNG reader is the reference
-        assert im.is_animated and im.n_frames == 5 and im.info.get("loop") == 0
-        for k, f in enumerate(frames):
-            im.seek(k)
-            assert np.array_equal(np.asarray(im.convert("RGBA")), f)
+def test_error_views_mark_each_region_where_it_faces(tmp_path):
+    from featuretex import synth
+    from featuretex.report import errorviews, stills
+
+    tm = _sphere_glb(tmp_path / "m.glb", synth.checker_texture(64, 4), frame=FRAME)
+    model = stills.load_model(tmp_path / "m.glb")
+    # three regions in texture space, each around the texel the sphere shows towards +X, -Z, +Y
+    ids = np.zeros((64, 64), np.int32)
+    want = {}
+    for n, axis in ((1, [1, 0, 0]), (2, [0, 0, -1]), (3, [0, 1, 0])):
+        centre = np.linalg.inv(FRAME[:3, :3]) @ np.asarray(axis, float)
+        k = int(np.argmax(((tm.vertices - tm.vertices.mean(0)) / 0.4) @ (centre / np.linalg.norm(centre))))
+        u, v = tm.visual.uv[k]
+        r, c = int((1 - v) * 64), int(u * 64)
+        ids[max(r - 3, 0):r + 3, max(c - 3, 0):c + 3] = n
+        want[n] = [name for name, towards, _ in stills.SIX_VIEWS if list(towards) == [float(a) for a in axis]][0]
+    views = errorviews.render(stills.Caster(model), np.full((64, 64, 3), 200, np.uint8), ids, size=96)
+    assert {n: views.names[i] for n, i in views.shown_in.items()} == want
+    grid = errorviews.sheet(views)
+    assert grid.shape[1] == 3 * 96 + 4 * 8
+
+
+def test_details_are_where_the_textures_differ_and_never_read_the_photo(tmp_path):
+    from featuretex.report import closer
+
+    rng = np.random.default_rng(3)
+    base = np.full((240, 320, 3), 120, np.uint8)
+    base[20:220, 30:300] = rng.integers(60, 200, (200, 270, 3))          # the object
+    after = base.copy()
+    after[100:140, 200:240] = 255 - after[100:140, 200:240]              # a detail that changed
+    for name, im in (("a_baseline", base), ("a_baked", after), ("b_baseline", base), ("b_baked", base)):
+        Image.fromarray(im).save(tmp_path / f"{name}.png")
+    renders = {v: (tmp_path / f"{v}_baseline.png", tmp_path / f"{v}_baked.png") for v in ("a", "b")}
+    found = closer.choose(renders, count=3, crop=64)
+    assert [d.view for d in found] == ["a"]                  # one detail per view without a locator
+    x0, y0, x1, y1 = found[0].box
+    assert x0 <= 200 and x1 >= 240 and y0 <= 100 and y1 >= 140 and x1 - x0 == 64
+    # a brute-force mean over every window (numpy) is the reference for the winning score
+    e = closer.detail_energy(*(closer.read_rgb(p) for p in renders["a"]))
+    assert found[0].score == pytest.approx(float(e[y0:y1, x0:x1].mean()), rel=1e-6)
+    # several places of one view: non-overlapping windows, best first
+    more = closer.windows(e, np.ones(e.shape, bool), 64, 3)
+    boxes = [b for b, _ in more]
+    assert boxes[0] == found[0].box and all(
+        a[2] <= b[0] or b[2] <= a[0] or a[3] <= b[1] or b[3] <= a[1] for i, a in enumerate(boxes) for b in boxes[i + 1:])
+
+
+def test_legend_in_the_page_matches_the_pictures(pipeline_run):
+    """Every swatch of the page's legend appears in the legends drawn into error_map.png and
+    error_map_views.png, pixel for pixel and in the same order (OpenCV template matching)."""
+    import cv2
+
+    from featuretex.diagnose.palette import LEGEND, NOTE
+
+    page = _parse(write_report(pipeline_run))
+    legend = [im for im in page.images if "key" in im.get("class", "").split()]   # the full legend's swatches
+    assert [int(s["data-class"]) for s in legend] == [c for c, _, _ in LEGEND]
+    assert NOTE in page.text and all(label in page.text and meaning in page.text for _, label, meaning in LEGEND)
+    for png in ("error_map.png", "error_map_views.png"):
+        picture = cv2.cvtColor(cv2.imread(str(pipeline_run / png)), cv2.COLOR_BGR2RGB)
+        strip = picture[picture.shape[0] // 2:]                   # the legend lies below the picture
+        spots = []
+        for s in legend:
+            sw = np.asarray(Image.open(io.BytesIO(base64.b64decode(s["src"].split(",", 1)[1]))).convert("RGB"))
+            score = cv2.matchTemplate(strip, sw, cv2.TM_SQDIFF)
+            _, _, (x, y), _ = cv2.minMaxLoc(score)
+            assert score[y, x] < 1.0, (png, s["alt"])           # the same pixels (float rounding only)
+            spots.append((x, y))
+        columns = sorted({x for x, _ in spots})
+        reading = sorted(range(len(spots)), key=lambda k: (columns.index(spots[k][0]), spots[k][1]))
+        assert reading == list(range(len(spots))), png            # in the same order (down each column)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -191,18 +259,34 @@ class _Page(HTMLParser):
         self.urls: list[str] = []
         self.ids: set[str] = set()
         self.text = ""
+        self.scripts: list[tuple[dict, str]] = []     # (attributes, text) of every <script>
+        self.csp = ""
+        self._script: dict | None = None
 
     def handle_starttag(self, tag, attrs):
         a = dict(attrs)
         if "id" in a:
             self.ids.add(a["id"])
+        if tag == "script":
+            self._script = a
+            self.scripts.append((a, ""))
+        if tag == "meta" and a.get("http-equiv", "").lower() == "content-security-policy":
+            self.csp = a["content"]
         if tag == "img":
             self.images.append(a)
         if tag == "a":
             self.links.append(a["href"])
         self.urls += [v for k, v in attrs if k in ("src", "href", "action", "poster", "data") and v]
 
+    def handle_endtag(self, tag):
+        if tag == "script":
+            self._script = None
+
     def handle_data(self, data):
+        if self._script is not None:
+            attrs, text = self.scripts[-1]
+            self.scripts[-1] = (attrs, text + data)
+            return
         self.text += data
 
 
@@ -237,10 +321,11 @@ def test_the_pipeline_writes_everything_the_report_reads(pipeline_run):
 
 
 def test_report_is_self_contained_and_shows_the_summary(pipeline_run):
-    before = _tree_hashes(pipeline_run, {"report.html", "turntable.png"})
+    outputs = {"report.html", "error_map_views.png", "preview.png"}
+    before = _tree_hashes(pipeline_run, outputs)
     page_path = write_report(pipeline_run)
     assert page_path == pipeline_run / "report.html"
-    assert _tree_hashes(pipeline_run, {"report.html", "turntable.png"}) == before      # inputs untouched
+    assert _tree_hashes(pipeline_run, outputs) == before                              # inputs untouched
     assert not list(pipeline_run.glob(".report.html.*"))                              # atomic: no temp left
     page = _parse(page_path)
     summary = json.loads((pipeline_run / "summary.json").read_text())
@@ -253,15 +338,28 @@ def test_report_is_self_contained_and_shows_the_summary(pipeline_run):
             im.load()
     for href in page.links:
         assert (pipeline_run / href).is_file(), href
+    # scripts: all inline, each allowed by its SHA-256 in the policy (CSP Level 3 hash sources),
+    # nothing else allowed; data blocks (application/json) are never run
+    policy = dict(d.strip().split(" ", 1) for d in page.csp.split(";") if d.strip())
+    run = [text for attrs, text in page.scripts if attrs.get("type", "text/javascript") == "text/javascript"]
+    assert all("src" not in attrs for attrs, _ in page.scripts)
+    hashes = {"'sha256-" + base64.b64encode(hashlib.sha256(t.encode()).digest()).decode() + "'" for t in run}
+    assert set(policy["script-src"].split()) == hashes and len(run) >= 3    # three.js, the viewer, the sliders
+    assert policy["default-src"] == "'none'"
+    # the model inside the page is model.glb, byte for byte
+    data = next(json.loads(t) for a, t in page.scripts if a.get("id") == "viewer3d-data")
+    assert base64.b64decode(data["glb"]) == (pipeline_run / "model.glb").read_bytes()
     assert describe(summary["verdict"])[0] in page.text
     for reason in summary["reasons"]:
         assert reason in page.text
     for view, s in summary["heldout_per_view"]["baseline"].items():
         assert f"View {view}" in page.text
         assert f"PSNR {num(s['psnr'], 2, ' dB')}" in page.text and f"SSIM {num(s['ssim'], 3)}" in page.text
-    with Image.open(pipeline_run / "turntable.png") as im:
-        assert im.is_animated
-    assert {"verdict", "heldout", "errormap", "turntable", "curves", "textures", "timings", "config"} <= page.ids
+    assert num(summary["heldout"]["baked"]["psnr_tolerant"], 2) in page.text
+    with Image.open(pipeline_run / "error_map_views.png") as im, Image.open(pipeline_run / "preview.png") as pre:
+        assert im.width > 3 * 320 and pre.size == (240, 240)
+    assert {"verdict", "deliverables", "quality", "view3d", "closer", "where", "errormap", "heldout", "curves",
+            "textures", "timings", "config"} <= page.ids
     assert "missing" not in page.ids                     # every artefact the report reads is there
     config = (pipeline_run / ".hydra" / "config.yaml").read_text()
     assert all(line.strip() in page.text for line in config.splitlines()[:5])   # the exact config is shown
@@ -283,7 +381,7 @@ def test_report_of_a_partial_run_names_what_is_missing(pipeline_run, tmp_path):
     for f in gone:
         assert f in page.text
     assert describe(None)[0] in page.text                # "No verdict yet"
-    assert "not produced: the export stage" in page.text  # no turntable without model.glb
+    assert "no 3D view: the export stage has not written model.glb" in page.text
 
 
 def test_report_of_an_empty_folder_still_writes(tmp_path):
@@ -297,3 +395,30 @@ def test_report_survives_odd_summary_values(tmp_path):
         "heldout_per_view": {"neural": {"v0": None}}, "areas": {"uncovered": "x"}}))
     page = _parse(write_report(tmp_path))
     assert describe("ready")[0] in page.text and "verdict" in page.ids
+
+
+def test_report_shows_what_later_stages_add(pipeline_run, tmp_path, monkeypatch):
+    """summary.json keys other stages write (inferred, warnings, another scored method, a region
+    list with payoffs) appear without the report knowing them in advance; a section module of
+    featuretex.report named in SECTION_MODULES is drawn after the error map."""
+    import shutil
+    import sys
+    import types
+
+    run = tmp_path / "run"
+    shutil.copytree(pipeline_run, run)
+    summary = json.loads((run / "summary.json").read_text())
+    summary["inferred"] = [{"what": "up direction", "detail": "from the camera ring (+z)"}]
+    summary["warnings"] = ["photo v003 is blurred"]
+    summary["heldout"]["touchup"] = {"psnr": 31.25, "ssim": 0.5, "psnr_gaincomp": 31.5, "psnr_tolerant": 33.75}
+    summary["regions"] = [{"class": "geometry", "area": 0.25, "centre": [1.0, 2.0, 3.0],
+                           "payoff_db": {"geometry": 1.5, "texture": 0.25}}]
+    (run / "summary.json").write_text(json.dumps(summary))
+    extra = types.ModuleType("featuretex.report.touchup")
+    extra.section_html = lambda r: f'<section id="touchup-test"><h2>Touch-up of {len(r.methods)} methods</h2></section>'
+    monkeypatch.setitem(sys.modules, "featuretex.report.touchup", extra)
+    page = _parse(write_report(run))
+    for text in ("up direction", "from the camera ring (+z)", "photo v003 is blurred", "Touched-up model",
+                 "33.75", "payoff db.geometry", "1.5", "Touch-up of 4 methods"):
+        assert text in page.text, text
+    assert "touchup-test" in page.ids

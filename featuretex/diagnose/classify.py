@@ -7,10 +7,24 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-# texel classes, ordered by severity (so the worst wins when a coarser grid pools several)
-OFF, FINE, TEXTURE, GEOMETRY, UNCOVERED = 0, 1, 2, 3, 4
+# texel classes as stored in error_map.npz `cls` (codes are stable; CAVITY came last)
+OFF, FINE, TEXTURE, GEOMETRY, UNCOVERED, CAVITY = 0, 1, 2, 3, 4, 5
 CLASS_NAMES = {OFF: "off-surface", FINE: "fine", TEXTURE: "texture-limited", GEOMETRY: "geometry-limited",
-               UNCOVERED: "uncovered"}
+               UNCOVERED: "uncovered", CAVITY: "cavity"}
+# least to most severe: when a coarser grid pools several texels, the most severe class wins (a
+# cavity asks nothing of anyone, so any other problem in the block outranks it)
+SEVERITY = (OFF, FINE, CAVITY, TEXTURE, GEOMETRY, UNCOVERED)
+_RANK = np.argsort(SEVERITY).astype(np.uint8)        # class code -> severity rank
+
+
+def severity(cls: np.ndarray) -> np.ndarray:
+    """Class codes -> severity ranks (same shape, uint8): pool ranks with max, map back with `from_severity`."""
+    return _RANK[np.asarray(cls, np.intp)]
+
+
+def from_severity(rank: np.ndarray) -> np.ndarray:
+    """Severity ranks -> class codes (uint8)."""
+    return np.asarray(SEVERITY, np.uint8)[np.asarray(rank, np.intp)]
 
 
 def ramp(x: np.ndarray) -> np.ndarray:
@@ -51,8 +65,9 @@ def drop_small(mask: np.ndarray, min_size: int) -> np.ndarray:
 
 
 def classify(valid: np.ndarray, coverage: np.ndarray, geometry: np.ndarray, texture: np.ndarray, *,
-             min_views: int, min_region: int) -> np.ndarray:
-    """(D, D) uint8 class per texel (OFF, FINE, TEXTURE, GEOMETRY, UNCOVERED)."""
+             min_views: int, min_region: int, hidden: np.ndarray | None = None) -> np.ndarray:
+    """(D, D) uint8 class per texel (OFF, FINE, TEXTURE, GEOMETRY, UNCOVERED, CAVITY); hidden: (D, D)
+    bool, surface in cavities no outside camera reaches: CAVITY where it is uncovered."""
     cls = np.where(valid, FINE, OFF).astype(np.uint8)
     uncovered = valid & ~(coverage >= min_views)
     known = valid & ~uncovered
@@ -61,18 +76,21 @@ def classify(valid: np.ndarray, coverage: np.ndarray, geometry: np.ndarray, text
     cls[tex] = TEXTURE
     cls[geo] = GEOMETRY
     cls[uncovered] = UNCOVERED
+    if hidden is not None:
+        cls[uncovered & hidden] = CAVITY
     return cls
 
 
-def area_fractions(cls: np.ndarray, area: np.ndarray, hidden: np.ndarray) -> dict[str, float]:
-    """Surface-area fractions of the classes that matter; area: (D, D) texel areas (0 off surface);
-    hidden: (D, D) bool, texels in cavities (reported as `uncovered_hidden`, part of `uncovered`)."""
+def area_fractions(cls: np.ndarray, area: np.ndarray) -> dict[str, float]:
+    """Surface-area fractions of the classes that matter; area: (D, D) texel areas (0 off surface).
+    `uncovered` counts every surface too few views saw, cavities included; `uncovered_hidden` is
+    the cavity part of it."""
     total = float(area[cls != OFF].sum())
 
     def frac(m: np.ndarray) -> float:
         return float(area[m].sum()) / total if total > 0 else 0.0
-    return {"uncovered": frac(cls == UNCOVERED), "geometry_limited": frac(cls == GEOMETRY),
-            "texture_limited": frac(cls == TEXTURE), "uncovered_hidden": frac((cls == UNCOVERED) & hidden)}
+    return {"uncovered": frac((cls == UNCOVERED) | (cls == CAVITY)), "geometry_limited": frac(cls == GEOMETRY),
+            "texture_limited": frac(cls == TEXTURE), "uncovered_hidden": frac(cls == CAVITY)}
 
 
 @dataclass

@@ -49,7 +49,7 @@ class Diagnosis:
     coverage: np.ndarray      # float32 usable fitted views seeing the texel (NaN off the surface)
     displacement: np.ndarray  # float32 offset along the normal to the photographed surface, scene units
     cls: np.ndarray           # uint8 class (featuretex.diagnose.classify: 0 off, 1 fine, 2 texture,
-                              #   3 geometry, 4 uncovered)
+                              #   3 geometry, 4 uncovered, 5 cavity)
     areas: dict[str, float]   # surface-area fractions: uncovered, geometry_limited, texture_limited
     verdict: str              # rescan | fix-geometry | refine-texture | ready
     reasons: list[str]
@@ -109,13 +109,14 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
     geometry = C.geometry_field(work["sweep_evidence"], align_normal, geo_tol, known,
                                 work.get("silhouette_offset"))
     texture = C.texture_field(work["residual"], work["agreement"], cfg.texture_tol, weight, known)
-    cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views, min_region=cfg.min_region)
+    hidden = cavities(scene, grid, valid & ~known, cfg)
+    cls = C.classify(valid, work["coverage"], geometry, texture, min_views=cfg.min_views,
+                     min_region=cfg.min_region, hidden=hidden)
     area = texel_areas(scene.mesh, grid)
-    hidden = cavities(scene, grid, cls == C.UNCOVERED, cfg)
 
     displacement = combined_displacement(work, known)
     magnitude = np.fmax(np.abs(displacement), align_normal if align_normal is not None else np.nan)
-    ev = scan_evidence(work, grid, cls, area, hidden, displacement, magnitude, ratio, progress, why,
+    ev = scan_evidence(work, grid, cls, area, displacement, magnitude, ratio, progress, why,
                        len(obs), cfg)
     verdict = decide(ev, cfg, fix_tol)
     words = reasons(verdict, ev, cfg, fix_tol, scene.manifest.unit, scene.manifest.unit_m)
@@ -132,8 +133,9 @@ def diagnose(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, te
                 region=label_map(numbered, cls.shape), loo_se=pay.se.reshape(cls.shape),
                 loo_px=pay.pixels.reshape(cls.shape), **P.gain_maps(pay, cls.shape))
     up = Resampler(valid, texels.valid)
-    cls_t = up(cls.astype(np.float32), mode="max")
-    cls_t = np.where(texels.valid, np.nan_to_num(cls_t, nan=C.FINE), C.OFF).astype(np.uint8)
+    rank = up(C.severity(cls).astype(np.float32), mode="max")    # the most severe class of each block
+    cls_t = np.where(texels.valid, C.from_severity(np.nan_to_num(rank, nan=C.severity(C.FINE))), C.OFF
+                     ).astype(np.uint8)
     extra = {k: up(work[k]) for k in ("consistency", "consistency_aligned", "residual", "align_misplacement",
                                       "align_offset", "sweep_gain", "sweep_score", "sweep_evidence",
                                       "silhouette_offset", "silhouette_raw") if k in work}
@@ -167,16 +169,16 @@ def combined_displacement(work: dict[str, np.ndarray], known: np.ndarray) -> np.
 
 
 def scan_evidence(work: dict[str, np.ndarray], grid: TexelBuffer, cls: np.ndarray, area: np.ndarray,
-                  hidden: np.ndarray, displacement: np.ndarray, magnitude: np.ndarray, ratio: float,
+                  displacement: np.ndarray, magnitude: np.ndarray, ratio: float,
                   progress, why: list[str], views: int, cfg: DiagnoseConfig) -> Evidence:
     """Scan-level figures (areas, largest regions, misplacement, residual) for the verdict."""
     pos = grid.position.astype(np.float64)
     top = cfg.regions_reported
     tex = cls == C.TEXTURE
     return Evidence(
-        areas=C.area_fractions(cls, area, hidden),
+        areas=C.area_fractions(cls, area),
         geometry_regions=C.regions(cls == C.GEOMETRY, area, pos, displacement, magnitude, top),
-        uncovered_regions=C.regions((cls == C.UNCOVERED) & ~hidden, area, pos, displacement, magnitude, 1),
+        uncovered_regions=C.regions(cls == C.UNCOVERED, area, pos, displacement, magnitude, 1),
         texture_regions=C.regions(tex, area, pos, displacement, magnitude, top),
         geometry_misplacement=geometry_p90(magnitude[cls == C.GEOMETRY]),
         texture_residual=float(np.nanmedian(work["residual"][tex])) if tex.any() else 0.0,

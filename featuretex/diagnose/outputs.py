@@ -56,13 +56,14 @@ def write_png(path: Path, uv_map: np.ndarray, dg: Diagnosis, scene: Scene) -> No
     unit, um = scene.manifest.unit, scene.manifest.unit_m
     a = dg.areas
     f = dg.figures
-    lines = [f"uncovered {100 * a['uncovered']:.1f} %   geometry-limited {100 * a['geometry_limited']:.1f} %   "
+    open_uncovered = a["uncovered"] - a.get("uncovered_hidden", 0.0)
+    lines = [f"uncovered {100 * open_uncovered:.1f} %   cavity {100 * a.get('uncovered_hidden', 0.0):.1f} %   "
+             f"geometry-limited {100 * a['geometry_limited']:.1f} %   "
              f"texture-limited {100 * a['texture_limited']:.1f} % of the surface",
              f"geometry tolerance {length(f.get('geometry_tol', float('nan')), unit, um)}; sweep range "
              f"+/- {length(f.get('sweep_half_range', float('nan')), unit, um)}; {f.get('views', 0)} fitted views"
              + ("" if f.get("used_alignment") else "; no alignment fields"),
-             "UV space, v up; paler tint on fine texels = evidence below the threshold; "
-             "G / T: fixing the geometry / fitting longer pays more"] + legend_lines(dg.regions)
+             "UV space, v up; G / T: fixing the geometry / fitting longer pays more"] + legend_lines(dg.regions)
     img = with_legend(uv_map, f"verdict: {dg.verdict}", lines)
     if "region" in dg.work:
         k = uv_map.shape[0] // dg.work["region"].shape[0]

@@ -1,11 +1,15 @@
-"""Colours of the error map, and the map painted in UV space with its legend.
+"""Colours of the error map, its legend, and the map painted in UV space with that legend.
 
 Palette reasoning (our own scheme): the classes differ first in LIGHTNESS (CIELAB L* about
-100 / 84 / 68 / 44 / 16 for no surface / fine / geometry / texture / uncovered), which every
-form of colour blindness and a greyscale print keep; second in hue along the blue-orange axis,
-the opposition that protanopes and deuteranopes (the common red-green deficiencies) still see;
-tritanopes lose blue-yellow but keep the lightness steps. Uncovered surface is also hatched, so
-it reads without colour at all. Fine texels carry a faint tint of sub-threshold evidence.
+100 / 84 / 68 / 44 / 31 / 16 for no surface / fine / geometry / texture / cavity / uncovered),
+which every form of colour blindness and a greyscale print keep; second in hue along the
+blue-orange axis, the opposition that protanopes and deuteranopes (the common red-green
+deficiencies) still see; tritanopes lose blue-yellow but keep the lightness steps. Uncovered
+surface and cavities are also hatched, in opposite directions, so they read without colour at
+all. Fine texels carry a faint tint of sub-threshold evidence.
+
+`LEGEND` and `NOTE` are the one legend every picture of the map carries (error_map.png, the
+report's stills, the report page itself); `swatch` gives each entry's exact pixels.
 """
 
 from __future__ import annotations
@@ -13,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 from PIL import Image, ImageDraw, ImageFont
 
-from featuretex.diagnose.classify import FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED
+from featuretex.diagnose.classify import CAVITY, FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED
 
 COLOURS: dict[int, tuple[int, int, int]] = {   # sRGB bytes
     OFF: (255, 255, 255),
@@ -21,16 +25,25 @@ COLOURS: dict[int, tuple[int, int, int]] = {   # sRGB bytes
     GEOMETRY: (232, 146, 48),
     TEXTURE: (47, 104, 178),
     UNCOVERED: (40, 40, 44),
+    CAVITY: (84, 66, 98),
 }
-HATCH = (150, 150, 156)          # stripes over uncovered texels
-LABELS = {
-    FINE: "fine",
-    GEOMETRY: "geometry / alignment error",
-    TEXTURE: "texture under-fit",
-    UNCOVERED: "uncovered (too few photos)",
-    OFF: "no surface",
-}
+# hatched classes: stripe colour and direction (+1: "/" stripes, -1: "\\" stripes)
+HATCH: dict[int, tuple[tuple[int, int, int], int]] = {UNCOVERED: ((150, 150, 156), 1),
+                                                       CAVITY: ((146, 128, 160), -1)}
+# (class, label, what it asks of the reader), in legend order
+LEGEND: tuple[tuple[int, str, str], ...] = (
+    (GEOMETRY, "geometry / alignment error", "photos disagree with the mesh: fix the shape or the camera poses"),
+    (TEXTURE, "texture under-fit", "the shape holds: a longer fit or a larger texture sharpens it"),
+    (UNCOVERED, "uncovered (too few photos)", "too few usable photos saw it: rescan it if it matters"),
+    (CAVITY, "cavity (no camera reaches)", "inside a hollow no outside camera sees: not a rescan reason"),
+    (FINE, "fine", "photos and model agree; a pale tint marks evidence below the limits"),
+    (OFF, "no surface", "texture space the mesh does not use (UV map only)"),
+)
+LABELS = {c: label for c, label, _ in LEGEND}
+MEANING = {c: meaning for c, _, meaning in LEGEND}
+NOTE = "Hatching: uncovered surface has / stripes and cavities \\ stripes, so both read without colour."
 TINT = 0.4                       # how far sub-threshold evidence tints a fine texel
+SWATCH_PX = 20                   # legend swatch edge, pixels (the page shows the same pixels)
 
 
 def paint(cls: np.ndarray, geometry: np.ndarray, texture: np.ndarray, hatch_px: int = 6) -> np.ndarray:
@@ -46,9 +59,17 @@ def paint(cls: np.ndarray, geometry: np.ndarray, texture: np.ndarray, hatch_px: 
         + t[..., None] * (np.array(COLOURS[TEXTURE]) - base)
     out[fine] = tint[fine]
     r, c = np.indices(cls.shape)
-    stripe = ((r + c) // max(hatch_px // 2, 1)) % 3 == 0
-    out[(cls == UNCOVERED) & stripe] = HATCH
+    for code, (rgb, direction) in HATCH.items():
+        stripe = ((c + direction * r) // max(hatch_px // 2, 1)) % 3 == 0
+        out[(cls == code) & stripe] = rgb
     return np.clip(np.rint(out), 0, 255).astype(np.uint8)
+
+
+def swatch(code: int, px: int = SWATCH_PX) -> np.ndarray:
+    """(px, px, 3) uint8: the legend swatch of a class, with a 1-pixel dark frame."""
+    patch = paint(np.full((px, px), code, np.uint8), np.zeros((px, px)), np.zeros((px, px)), hatch_px=4)
+    patch[[0, -1], :] = patch[:, [0, -1]] = (40, 40, 40)
+    return patch
 
 
 def _font(size: int) -> ImageFont.ImageFont:
@@ -58,31 +79,38 @@ def _font(size: int) -> ImageFont.ImageFont:
         return ImageFont.load_default()
 
 
-def with_legend(uv_map: np.ndarray, title: str, lines: list[str]) -> Image.Image:
-    """The UV map with a legend strip below it: title, one swatch per class, and `lines` of figures."""
-    S = uv_map.shape[1]
-    fs = max(12, S // 45)
-    font, small = _font(fs), _font(max(10, int(fs * 0.8)))
-    row = int(fs * 1.6)
-    classes = [FINE, GEOMETRY, TEXTURE, UNCOVERED, OFF]
-    per_col = (len(classes) + 1) // 2
-    height = int(row * (1.5 + per_col + len(lines)) + fs)
-    img = Image.new("RGB", (S, uv_map.shape[0] + height), (255, 255, 255))
-    img.paste(Image.fromarray(uv_map, "RGB"), (0, 0))
+def legend_strip(width: int, title: str, lines: list[str], font_px: int = 13) -> Image.Image:
+    """A white strip `width` pixels wide: title, one swatch + label + meaning per LEGEND entry
+    (two columns when wide enough), NOTE, then `lines` of figures."""
+    font, small = _font(font_px), _font(max(10, font_px - 2))
+    pad, row = font_px, int(font_px * 2.6)
+    cols = 2 if width >= 900 else 1
+    per_col = -(-len(LEGEND) // cols)
+    extra = [NOTE, *lines]
+    height = pad + int(font_px * 1.8) + per_col * row + len(extra) * int(font_px * 1.5) + pad
+    img = Image.new("RGB", (width, height), (255, 255, 255))
     d = ImageDraw.Draw(img)
-    y0 = uv_map.shape[0] + fs // 2
-    d.line([(0, uv_map.shape[0]), (S, uv_map.shape[0])], fill=(0, 0, 0), width=1)
-    d.text((fs // 2, y0), title, fill=(0, 0, 0), font=font)
-    sw = int(fs * 1.1)
-    for k, c in enumerate(classes):
-        x = fs // 2 + (k // per_col) * (S // 2)
-        y = y0 + int(row * (1.3 + k % per_col))
-        patch = paint(np.full((sw, sw), c, np.uint8), np.zeros((sw, sw)), np.zeros((sw, sw)), hatch_px=4)
-        img.paste(Image.fromarray(patch, "RGB"), (x, y))
-        d.rectangle([x, y, x + sw - 1, y + sw - 1], outline=(0, 0, 0))
-        d.text((x + sw + fs // 2, y), LABELS[c], fill=(0, 0, 0), font=font)
-    y = y0 + int(row * (1.3 + per_col))
-    for line in lines:
-        d.text((fs // 2, y), line, fill=(40, 40, 40), font=small)
-        y += row
+    d.line([(0, 0), (width, 0)], fill=(0, 0, 0), width=1)
+    d.text((pad, pad), title, fill=(0, 0, 0), font=font)
+    y0 = pad + int(font_px * 1.8)
+    for k, (code, label, meaning) in enumerate(LEGEND):
+        x = pad + (k // per_col) * (width // cols)
+        y = y0 + (k % per_col) * row
+        img.paste(Image.fromarray(swatch(code), "RGB"), (x, y))
+        d.text((x + SWATCH_PX + 8, y), label, fill=(0, 0, 0), font=font)
+        d.text((x + SWATCH_PX + 8, y + int(font_px * 1.15)), meaning, fill=(70, 70, 70), font=small)
+    y = y0 + per_col * row
+    for line in extra:
+        d.text((pad, y), line, fill=(40, 40, 40), font=small)
+        y += int(font_px * 1.5)
+    return img
+
+
+def with_legend(picture: np.ndarray, title: str, lines: list[str]) -> Image.Image:
+    """The picture (H, W, 3) uint8 with the legend strip below it."""
+    H, W = picture.shape[:2]
+    strip = legend_strip(W, title, lines, font_px=max(12, min(16, W // 60)))
+    img = Image.new("RGB", (W, H + strip.height), (255, 255, 255))
+    img.paste(Image.fromarray(picture, "RGB"), (0, 0))
+    img.paste(strip, (0, H))
     return img

@@ -16,17 +16,12 @@ import numpy as np
 from PIL import Image, ImageDraw, ImageFont
 from scipy import ndimage
 
-from featuretex.diagnose.classify import FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED
+from featuretex.diagnose.classify import FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED, from_severity, severity
 from featuretex.diagnose.palette import COLOURS, LABELS, paint
 
+# the classes whose regions are numbered (cavities ask nothing of anyone, so they are not)
 KINDS = {GEOMETRY: "geometry", TEXTURE: "texture", UNCOVERED: "uncovered"}
-# class -> what it asks of the person reading the report (the labels are the diagnosis's own)
-MEANING = {GEOMETRY: "the photos disagree with the mesh here: fix the shape (or the camera poses)",
-           TEXTURE: "the shape holds; a longer fit or a larger texture would sharpen it",
-           UNCOVERED: "too few usable photos saw it: rescan it if it matters",
-           FINE: "photos and model agree",
-           OFF: "texture space the mesh does not use"}
-LEGEND_ORDER = (GEOMETRY, TEXTURE, UNCOVERED, FINE, OFF)
+MARK, INK = (255, 230, 60), (16, 16, 16)     # region outlines and number badges
 
 
 @dataclass(frozen=True)
@@ -66,15 +61,12 @@ class Layout:
     position: np.ndarray      # (T, T, 3) float32 scene units
 
 
-def layout_from_model(glb: Path, size: int) -> Layout:
-    """Texel centres inside a UV triangle of model.glb, each standing for (3D area / UV area of its
-    triangle) / T^2, and the surface point it maps to (scene frame and units: the glb's vertex data
-    before its root node's conversion to metres and +Y up)."""
+def layout_of(mesh, size: int) -> Layout:
+    """Texel centres inside a UV triangle of `mesh` (a SceneMesh), each standing for (3D area / UV
+    area of its triangle) / T^2, and the surface point it maps to (the mesh's own frame and unit)."""
     from featuretex.diagnose.grid import texel_areas
-    from featuretex.export.gltf import read_glb_mesh
     from featuretex.raster.uvspace import rasterise_uv
 
-    mesh, _ = read_glb_mesh(glb)
     texels = rasterise_uv(mesh, size)
     return Layout(texels.valid, texel_areas(mesh, texels), texels.position)
 
@@ -112,11 +104,10 @@ def _block_mean(a: np.ndarray, k: int) -> np.ndarray:
 
 
 def _block_worst(cls: np.ndarray, k: int) -> np.ndarray:
-    """(T, T) classes -> (T/k, T/k): the most severe class of each block (class codes are ordered by
-    severity in featuretex.diagnose.classify, as the diagnosis pools them)."""
+    """(T, T) classes -> (T/k, T/k): the most severe class of each block (as the diagnosis pools them)."""
     if k == 1:
         return cls
-    return cls.reshape(cls.shape[0] // k, k, cls.shape[1] // k, k).max(axis=(1, 3))
+    return from_severity(severity(cls).reshape(cls.shape[0] // k, k, cls.shape[1] // k, k).max(axis=(1, 3)))
 
 
 def load_fields(npz: Path, layout: Layout | None = None, min_views: int = 2, k: int = 1) -> ErrorFields:
@@ -206,17 +197,40 @@ def outline_regions(image: np.ndarray, regions: list[Region], texels: int, displ
         m = np.repeat(np.repeat(full, k, axis=0), k, axis=1)
         inner = m & ~ndimage.binary_erosion(m, iterations=2)          # 2 px inside the edge
         outer = ndimage.binary_dilation(m, iterations=2) & ~m           # 2 px outside it
-        big[outer] = (16, 16, 16)
-        big[inner] = (255, 230, 60)
+        big[outer] = INK
+        big[inner] = MARK
     im = Image.fromarray(big).resize((display, display), Image.NEAREST)
     draw = ImageDraw.Draw(im)
     s = display / texels
     font = _font(max(15, display // 34))
     for i, r in enumerate(regions, 1):
         pr, pc = label_point(r.mask)
-        x, y = (r.box[1] + pc) * s, (r.box[0] + pr) * s
-        tb = draw.textbbox((x, y), str(i), font=font, anchor="mm")
-        rad = max(tb[2] - tb[0], tb[3] - tb[1]) / 2 + 5
-        draw.ellipse((x - rad, y - rad, x + rad, y + rad), fill=(16, 16, 16), outline=(255, 230, 60), width=2)
-        draw.text((x, y), str(i), font=font, fill=(255, 230, 60), anchor="mm")
+        badge(draw, (r.box[1] + pc) * s, (r.box[0] + pr) * s, i, font)
     return im
+
+
+def badge(draw: ImageDraw.ImageDraw, x: float, y: float, n: int, font: ImageFont.ImageFont) -> None:
+    """Region number n in a dark disc with a yellow ring, centred on (x, y) pixels."""
+    tb = draw.textbbox((x, y), str(n), font=font, anchor="mm")
+    rad = max(tb[2] - tb[0], tb[3] - tb[1]) / 2 + 5
+    draw.ellipse((x - rad, y - rad, x + rad, y + rad), fill=INK, outline=MARK, width=2)
+    draw.text((x, y), str(n), font=font, fill=MARK, anchor="mm")
+
+
+def region_ids(regions: list[Region], texels: int) -> np.ndarray:
+    """(T, T) int32: 1 + the index of the region holding each texel, 0 elsewhere."""
+    ids = np.zeros((texels, texels), np.int32)
+    for i, r in enumerate(regions, 1):
+        r0, c0, r1, c1 = r.box
+        ids[r0:r1, c0:c1][r.mask] = i
+    return ids
+
+
+def surface_texture(f: ErrorFields, gutter: int = 4) -> np.ndarray:
+    """(T, T, 3) uint8: the painted map with its islands padded `gutter` texels outwards, so
+    filtered lookups at island borders on a 3D model never mix in the white of "no surface"."""
+    from featuretex.bake.gutter import fill_texture
+
+    on = f.cls != OFF
+    filled = fill_texture(painted(f).astype(np.float32), on, on, gutter)
+    return np.clip(np.rint(filled), 0, 255).astype(np.uint8)

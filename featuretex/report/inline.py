@@ -41,6 +41,11 @@ def esc(x: object) -> str:
     return html.escape(str(x), quote=True)
 
 
+def absent(what: str) -> str:
+    """A placeholder box saying what is not there (and why)."""
+    return f'<div class="absent">{esc(what)}</div>'
+
+
 def num(x: object, digits: int = 2, unit: str = "") -> str:
     """A finite number with `digits` decimals (and a unit), else an em dash."""
     if x is None or isinstance(x, bool):

@@ -19,15 +19,15 @@ from featuretex.scene.manifest import view_file_stem
 log = logging.getLogger("featuretex")
 
 METHODS = ("baseline", "baked", "neural")         # held-out renders, in the order they are shown
-METHOD_LABELS = {"photo": "Photo (held out)", "baseline": "Classical bake", "baked": "Baked texture",
-                 "neural": "Neural render"}
+METHOD_LABELS = {"photo": "Photo (held out)", "baseline": "Classical bake", "baked": "Delivered texture",
+                 "neural": "Neural render", "touchup": "Touched-up model"}
 
 # artefact -> (stage that writes it, what the reader loses without it)
 ARTEFACTS: dict[str, tuple[str, str]] = {
     "summary.json": ("score", "verdict, reasons and every figure"),
     "texture.png": ("bake", "the baked texture"),
     "baseline_texture.png": ("baseline bake", "the classical texture"),
-    "model.glb": ("export", "the turntable preview"),
+    "model.glb": ("export", "the 3D view and the pictures of the model"),
     "error_map.npz": ("diagnose", "the error map and its worst regions"),
     "error_map.png": ("diagnose", "the painted error map"),
     "fit/history.json": ("fit", "the loss and held-out PSNR curves"),
@@ -77,7 +77,26 @@ class RunDir:
         return self.summary.get("heldout_per_view", {}).get(method, {}).get(view, {}) or {}
 
     def method_scores(self, method: str) -> dict[str, float | None]:
-        return self.summary.get("heldout", {}).get(method, {}) or {}
+        scores = (self.summary.get("heldout") or {}).get(method)
+        return scores if isinstance(scores, dict) else {}
+
+    @property
+    def methods(self) -> list[str]:
+        """Scored methods: the three every run has, then any other in summary.json's `heldout`
+        (a touched-up model, ...), in the order written."""
+        extra = [m for m, v in (self.summary.get("heldout") or {}).items()
+                 if m not in METHODS and isinstance(v, dict) and "psnr" in v]
+        return [*METHODS, *extra]
+
+    def config_value(self, dotted: str, default: Any) -> Any:
+        """A value of .hydra/config.yaml by its dotted key, or `default`."""
+        try:
+            node: Any = yaml.safe_load(self.config_text) if self.config_text else {}
+            for k in dotted.split("."):
+                node = node[k]
+            return node
+        except (KeyError, TypeError, yaml.YAMLError):
+            return default
 
 
 def _read_json(path: Path, problems: list[str]) -> dict[str, Any]:
