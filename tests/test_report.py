@@ -10,7 +10,6 @@ import base64
 import hashlib
 import io
 import json
-import math
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -361,6 +360,11 @@ def test_report_is_self_contained_and_shows_the_summary(pipeline_run):
     assert {"verdict", "deliverables", "quality", "view3d", "closer", "where", "errormap", "heldout", "curves",
             "textures", "timings", "config"} <= page.ids
     assert "missing" not in page.ids                     # every artefact the report reads is there
+    from featuretex.report.html import page_bytes
+
+    text = page_path.read_text(encoding="utf-8")
+    parts = page_bytes(text)                             # the budget's breakdown accounts for every byte
+    assert sum(parts.values()) == len(text.encode()) and parts["rest"] < 0.01 * len(text.encode())
     config = (pipeline_run / ".hydra" / "config.yaml").read_text()
     assert all(line.strip() in page.text for line in config.splitlines()[:5])   # the exact config is shown
 

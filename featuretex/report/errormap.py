@@ -17,7 +17,7 @@ from PIL import Image, ImageDraw, ImageFont
 from scipy import ndimage
 
 from featuretex.diagnose.classify import FINE, GEOMETRY, OFF, TEXTURE, UNCOVERED, from_severity, severity
-from featuretex.diagnose.palette import COLOURS, LABELS, paint
+from featuretex.diagnose.palette import paint
 
 # the classes whose regions are numbered (cavities ask nothing of anyone, so they are not)
 KINDS = {GEOMETRY: "geometry", TEXTURE: "texture", UNCOVERED: "uncovered"}

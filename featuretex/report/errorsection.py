@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 
+from featuretex.diagnose.palette import LABELS
 from featuretex.diagnose.verdict import SYMBOLS
 from featuretex.report import errormap
 from featuretex.report.context import VIEWS_FILE, Page
@@ -66,8 +67,8 @@ def regions_table_html(page: Page) -> str:
         where = ", ".join(f"{c:.3g}" for c in r.centre) + f" {esc(SYMBOLS.get(unit, unit))}" if r.centre else "—"
         off = esc(offset_text(r.offset, unit)) if r.kind == "geometry" else "—"
         view = esc(names[shown[i]]) if i in shown else '<span class="note">not seen from outside</span>'
-        rows.append(f'<tr><td class="n"><span class="num">{i}</span></td><td>{swatch_img(code, errormap.LABELS[code])} '
-                    f'{esc(errormap.LABELS[code])}</td><td class="n">{percent(r.share)}</td><td class="n">{area}</td>'
+        rows.append(f'<tr><td class="n"><span class="num">{i}</span></td><td>{swatch_img(code, LABELS[code])} '
+                    f'{esc(LABELS[code])}</td><td class="n">{percent(r.share)}</td><td class="n">{area}</td>'
                     f'<td>{view}</td><td class="n">{where}</td><td class="n">{off}</td>'
                     f'<td class="n">{r.uv[0]:.2f}, {r.uv[1]:.2f}</td></tr>')
     return ('<div class="scroll"><table class="regions"><thead><tr><th class="n">#</th><th>largest regions</th>'

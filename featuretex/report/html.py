@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import logging
 import math
+import re
 import time
 from pathlib import Path
 from typing import Any, Callable
@@ -240,6 +241,17 @@ def render_page(run: RunDir) -> tuple[str, Page]:
             f"<body><main>{body}</main>{scripts.tags(page.scripts)}</body></html>\n"), page
 
 
+def page_bytes(text: str) -> dict[str, int]:
+    """Bytes (UTF-8) of each part of a report page: every <section> by id, the inline scripts
+    (three.js and ours), and the rest; largest first."""
+    parts: dict[str, int] = {}
+    for m in re.finditer(r'<section id="([^"]+)".*?</section>', text, flags=re.S):
+        parts[m.group(1)] = parts.get(m.group(1), 0) + len(m.group(0).encode())
+    parts["scripts"] = sum(len(m.group(0).encode()) for m in re.finditer(r"<script>.*?</script>", text, flags=re.S))
+    parts["rest"] = len(text.encode()) - sum(parts.values())
+    return dict(sorted(parts.items(), key=lambda kv: -kv[1]))
+
+
 def write_report(run_dir: Path) -> Path:
     """Write `run_dir/report.html`, error_map_views.png and preview.png (a still of the delivered
     model, for the batch index) from what the run dir holds; return the report's path."""
@@ -251,5 +263,7 @@ def write_report(run_dir: Path) -> Path:
     still = page.preview()
     if still is not None:
         write_bytes(run.path / PREVIEW_FILE, image_png(still))
-    log.info("report: %s (%.1f s, %.1f MB)", out, time.perf_counter() - t0, len(text.encode()) / 1e6)
+    top = ", ".join(f"{k} {v / 1e6:.1f}" for k, v in list(page_bytes(text).items())[:3])
+    log.info("report: %s (%.1f s, %.1f MB; largest parts in MB: %s)", out, time.perf_counter() - t0,
+             len(text.encode()) / 1e6, top)
     return out

@@ -9,6 +9,7 @@ import json
 
 import numpy as np
 
+from featuretex.diagnose.palette import LABELS
 from featuretex.report import errormap, scripts
 from featuretex.report.context import Page
 from featuretex.report.inline import absent, data_uri, esc, image_png
@@ -29,7 +30,7 @@ def region_pins(page: Page) -> list[dict]:
         p = err.fields.position[r.box[0] + int(pr), r.box[1] + int(pc)].astype(np.float64)
         at = model.to_gltf[:3, :3] @ p + model.to_gltf[:3, 3]
         code = {v: k for k, v in errormap.KINDS.items()}[r.kind]
-        pins.append({"n": n, "at": [round(float(c), 6) for c in at], "label": f"{n}: {errormap.LABELS[code]}"})
+        pins.append({"n": n, "at": [round(float(c), 6) for c in at], "label": f"{n}: {LABELS[code]}"})
     return pins
 
 
