@@ -141,6 +141,7 @@ table.sortable td:first-child { width:112px; }
   .top2, .where, .pair { grid-template-columns:minmax(0, 1fr); }
   .detail { grid-template-columns:minmax(0, 1fr) minmax(0, 1fr); gap:8px; }
   .vw-stage { height:380px; }
+  table.quality tr > :nth-child(5) { display:none; }
   .verdict .word { font-size:1.4rem; }
 }
 
