@@ -426,3 +426,37 @@ def test_report_shows_what_later_stages_add(pipeline_run, tmp_path, monkeypatch)
                  "33.75", "payoff db.geometry", "1.5", "Touch-up of 4 methods"):
         assert text in page.text, text
     assert "touchup-test" in page.ids
+
+
+def test_details_are_located_on_the_surface_the_held_out_render_shows(pipeline_run):
+    """The locator behind "Look closer" (the run's working camera, a ray into model.glb) finds, for a
+    pixel of a held-out render, the surface point whose texel that render shows there: the classical
+    texture at the UV of the point trimesh's proximity query finds (an independent closest-point
+    search) matches the rendered pixel."""
+    from featuretex.bake.sampling import sample_texture
+    from featuretex.report import closer
+    from featuretex.report.context import Page
+    from featuretex.report.rundir import read_run_dir
+
+    page = Page(read_run_dir(pipeline_run))
+    locate = closer.locator(page.scene_views, page.caster)
+    mesh = page.model.mesh
+    tm = trimesh.Trimesh(mesh.vertices, mesh.faces, process=False)
+    tex = np.asarray(Image.open(pipeline_run / "baseline_texture.png").convert("RGB"), np.float32)
+    view = page.run.heldout_views[0]
+    render = np.asarray(Image.open(pipeline_run / "heldout" / f"{view}_baseline.png").convert("RGB"), np.float32)
+    ys, xs = np.nonzero(render.max(axis=-1) > 0)
+    pick = np.random.default_rng(0).choice(len(xs), 200, replace=False)
+    pts, want = [], []
+    for i in pick:
+        p = locate(view, float(xs[i]), float(ys[i]))
+        if p is not None:
+            pts.append(p)
+            want.append(render[ys[i], xs[i]])
+    assert len(pts) > 180
+    closest, _, tri = trimesh.proximity.closest_point(tm, np.array(pts))
+    bary = trimesh.triangles.points_to_barycentric(tm.triangles[tri], closest)
+    uv = np.einsum("nk,nkd->nd", bary, mesh.uv[mesh.faces[tri]])
+    got = sample_texture(tex, uv.astype(np.float32))
+    close = np.abs(got - np.array(want)).max(axis=1) <= 12
+    assert close.mean() > 0.9, close.mean()       # texel edges and silhouettes may differ

@@ -47,10 +47,13 @@ def run_cli(*args: str, timeout: float = 300) -> subprocess.CompletedProcess:
 
 
 def make_run_dir(base: Path) -> Path:
-    """Run the real command on a fresh tiny scene into `base/run` (a short fit, texture 128²)."""
+    """Run the real command on a fresh tiny scene into `base/run` (a short fit, texture 128²,
+    working images smaller than the photos)."""
     scene = make_scene(base / "scene")
     run = base / "run"
-    r = run_cli(f"scene={scene}", f"out={run}", "quiet=true", "texture.size=128",
+    # photos reduced to working images (128 x 96 -> 100 x 75): the report must read its held-out
+    # images through the working cameras, not the photos'
+    r = run_cli(f"scene={scene}", f"out={run}", "quiet=true", "texture.size=128", "photos.max_side=100",
                 *(f"fit.{k}={v}" for k, v in FAST_FIT.items()))
     assert r.returncode == 0, r.stderr[-3000:]
     return run

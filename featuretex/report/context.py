@@ -110,15 +110,27 @@ class Page:
 
     @cached_property
     def scene_views(self) -> dict | None:
-        """The scene's views by name (cameras), when scene.yaml is still readable."""
+        """The views by name as the run worked on them (the images in heldout/ are working images:
+        summary.json `working_resolution` gives each one's crop and size), when scene.yaml is still
+        readable."""
         scene = self.run.summary.get("scene")
         if not scene:
             return None
 
         def read() -> dict:
-            from featuretex.scene.manifest import read_manifest
+            import dataclasses
 
-            return {v.name: v for v in read_manifest(scene).views}
+            from featuretex.scene.manifest import read_manifest
+            from featuretex.scene.resample import Window, working_camera
+
+            working = self.run.summary.get("working_resolution") or {}
+            views = {}
+            for v in read_manifest(scene).views:
+                w = working.get(v.name)
+                if w:
+                    v = dataclasses.replace(v, camera=working_camera(v.camera, Window(*w["crop"], *w["size"])))
+                views[v.name] = v
+            return views
         return self._attempt("scene", read)
 
     @cached_property
