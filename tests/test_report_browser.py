@@ -31,7 +31,7 @@ from PIL import Image
 from featuretex.report.verdicts import describe
 from test_report_fixtures import ARTIFACTS
 
-# Debian's chromium-headless-shell renders like chromium and makes no background requests (DESIGN §7)
+# Debian's chromium-headless-shell renders like chromium and makes no background requests
 BROWSER = shutil.which("chromium-headless-shell") or shutil.which("chromium")
 FLAGS = ["--headless", "--no-sandbox", "--use-angle=swiftshader", "--enable-unsafe-swiftshader",
          "--disable-quic", "--no-first-run",
