@@ -26,20 +26,9 @@ from featuretex.report.verdicts import describe
 
 
 # ---------------------------------------------------------------------------------------------
-# error-map regions
+# error-map regions: numbered by the diagnosis, read (not found again) by the report
 # ---------------------------------------------------------------------------------------------
-def _fields(cls: np.ndarray) -> errormap.ErrorFields:
-    T = cls.shape[0]
-    rng = np.random.default_rng(0)
-    return errormap.ErrorFields(cls=cls, geometry=rng.uniform(0, 1, (T, T)).astype(np.float32),
-                                texture=rng.uniform(0, 1, (T, T)).astype(np.float32),
-                                displacement=np.full((T, T), np.nan, np.float32),
-                                weight=(cls != OFF).astype(np.float64), position=None, area_known=False)
-
-
-def test_regions_match_scikit_image_regionprops():
-    from skimage.measure import label, regionprops
-
+def _classes() -> np.ndarray:
     T = 96
     cls = np.full((T, T), FINE, np.uint8)
     cls[:, 90:] = OFF
@@ -50,38 +39,69 @@ def test_regions_match_scikit_image_regionprops():
     cls[5:8, 70:73] = TEXTURE                          # 9 texels of 8640: just above 0.1 %, kept
     cls[80:82, 5:6] = TEXTURE                          # 2 texels: dropped (< 0.1 % of the surface)
     cls[40:44, 5:9] = GEOMETRY                         # a second, smaller block
-    f = _fields(cls)
-    got = errormap.find_regions(f, per_class=10)
+    return cls
+
+
+def _numbered(cls: np.ndarray, verdict: str = "ready"):
+    from featuretex.diagnose.numbered import number_regions
+
+    T = cls.shape[0]
+    yy, xx = np.mgrid[:T, :T]
+    pos = np.stack([xx, yy, np.zeros_like(xx)], -1).astype(np.float32)   # a texel's position = its (col, row)
+    return number_regions(cls, (cls != OFF).astype(np.float64), pos, np.zeros(cls.shape, bool),
+                          np.full(cls.shape, np.nan, np.float32), verdict, per_class=10)
+
+
+def test_numbered_regions_match_scikit_image_regionprops():
+    from skimage.measure import label, regionprops
+
+    cls = _classes()
+    got = _numbered(cls)
     surface = float((cls != OFF).sum())
     want = []
-    for code, kind in errormap.KINDS.items():
-        # scikit-image's 8-connected labelling (connectivity=2) is the reference
-        for p in regionprops(label(cls == code, connectivity=2)):
-            if p.area / surface >= 0.001:
-                want.append((kind, tuple(int(b) for b in p.bbox), p.area / surface))
-    want.sort(key=lambda w: -w[2])
-    assert [(r.kind, r.box) for r in got] == [(k, b) for k, b, _ in want]
-    assert [r.share for r in got] == pytest.approx([s for _, _, s in want], rel=1e-12)
-    assert got[0].kind == "uncovered"
-    lead = errormap.find_regions(f, per_class=1, first="geometry")   # the verdict's class leads
-    assert [r.kind for r in lead] == ["geometry", "uncovered", "texture"] and lead[0].box == (10, 10, 30, 40)
-    blk = next(r for r in got if r.kind == "geometry")
-    assert blk.score == pytest.approx(float(f.geometry[10:30, 10:40].mean()), rel=1e-6)
+    # scikit-image's 8-connected labelling (connectivity=2) is the reference; within a class the
+    # largest come first, classes in the order geometry, texture, uncovered
+    for code in (GEOMETRY, TEXTURE, UNCOVERED):
+        props = [p for p in regionprops(label(cls == code, connectivity=2)) if p.area / surface >= 0.001]
+        want += [(code, tuple(int(b) for b in p.bbox), p.area / surface) for p in sorted(props, key=lambda p: -p.area)]
+    boxes = []
     for r in got:
-        pr, pc = errormap.label_point(r.mask)
-        assert r.mask[int(pr), int(pc)], f"label of region {r.kind} {r.box} lies outside it"
+        rows, cols = np.nonzero(r.mask)
+        boxes.append((r.code, (rows.min(), cols.min(), rows.max() + 1, cols.max() + 1)))
+    assert boxes == [(c, b) for c, b, _ in want]
+    assert [r.share for r in got] == pytest.approx([s for _, _, s in want], rel=1e-12)
+    assert [r.number for r in got] == list(range(1, len(got) + 1))
+    lead = _numbered(cls, "rescan")                    # the verdict's class leads
+    assert lead[0].code == UNCOVERED
+    for r in got:                                      # the marker is a texel of the region, even on the ring
+        col, row = int(r.marker[0]), int(r.marker[1])
+        assert r.mask[row, col], f"marker of region {r.number} lies outside it"
 
 
-def test_classify_without_cls_follows_the_diagnosis_rule():
-    cov = np.array([[0, 1, 2, 3, 4, 5]], np.float32)
-    geo = np.array([[0.9, 0.9, 0.9, 0.2, 0.6, np.nan]], np.float32)
-    tex = np.array([[0.9, 0.9, 0.9, 0.7, 0.8, 0.1]], np.float32)
-    cls = errormap.classify(cov, geo, tex, np.ones((1, 6), bool), min_views=2)
-    # featuretex.diagnose.classify.classify on the same input (without its small-region filter)
-    from featuretex.diagnose.classify import classify as diagnosis_rule
+def test_report_regions_are_the_diagnosis_regions(tmp_path):
+    """The report reads error_map.npz's `region` and summary.json's `regions`: same numbers, same
+    texels, same figures."""
+    from featuretex.diagnose.numbered import label_map
 
-    assert cls.tolist() == diagnosis_rule(np.ones((1, 6), bool), cov, geo, tex, min_views=2, min_region=1).tolist()
-    assert cls.tolist() == [[UNCOVERED, UNCOVERED, GEOMETRY, TEXTURE, GEOMETRY, FINE]]
+    cls = _classes()
+    got = _numbered(cls)
+    entries = [{"number": r.number, "class": r.name, "share": r.share, "area": r.area,
+                "centre": list(map(float, r.centre)), "marker": list(map(float, r.marker)), "offset": None,
+                "payoff_db": {"geometry": 0.5 * r.number, "texture": 0.1}} for r in got]
+    T = cls.shape[0]
+    np.savez(tmp_path / "error_map.npz", cls=cls, geometry=np.zeros((T, T), np.float32),
+             texture=np.zeros((T, T), np.float32), region=label_map(got, cls.shape).astype(np.float32))
+    fields = errormap.load_fields(tmp_path / "error_map.npz")
+    regions = errormap.regions_of(entries, fields.region)
+    assert [r.number for r in regions] == [r.number for r in got]
+    for mine, theirs in zip(regions, got):
+        full = np.zeros(cls.shape, bool)
+        full[mine.box[0]:mine.box[2], mine.box[1]:mine.box[3]] = mine.mask
+        assert np.array_equal(full, theirs.mask)
+        assert mine.kind == theirs.name and mine.share == theirs.share and mine.payoff["geometry"] == 0.5 * mine.number
+    np.savez(tmp_path / "old.npz", cls=cls, geometry=np.zeros((T, T), np.float32), texture=np.zeros((T, T), np.float32))
+    with pytest.raises(KeyError, match="region"):       # an older run's npz: said, not guessed
+        errormap.load_fields(tmp_path / "old.npz")
 
 
 def _sphere_glb(path: Path, texture: Image.Image, frame: np.ndarray | None = None) -> trimesh.Trimesh:
@@ -100,14 +120,18 @@ def _sphere_glb(path: Path, texture: Image.Image, frame: np.ndarray | None = Non
 
 def test_texel_areas_add_up_to_the_mesh_area(tmp_path):
     from featuretex import synth
+    from featuretex.diagnose.grid import texel_areas
     from featuretex.export.gltf import read_glb_mesh
+    from featuretex.raster.uvspace import rasterise_uv
 
     tm = _sphere_glb(tmp_path / "m.glb", synth.checker_texture(64, 4))
-    lay = errormap.layout_of(read_glb_mesh(tmp_path / "m.glb")[0], 256)
+    mesh = read_glb_mesh(tmp_path / "m.glb")[0]
+    texels = rasterise_uv(mesh, 256)
+    area = texel_areas(mesh, texels)
     # trimesh's own triangle areas are the reference; texel sampling of the UV charts is exact
     # to about a texel along chart borders (here under 1 %)
-    assert lay.area.sum() == pytest.approx(tm.area, rel=0.01)
-    assert not lay.area[~lay.surface].any()
+    assert area.sum() == pytest.approx(tm.area, rel=0.01)
+    assert not area[~texels.valid].any()
 
 
 # ---------------------------------------------------------------------------------------------
@@ -401,13 +425,11 @@ def test_report_survives_odd_summary_values(tmp_path):
     assert describe("ready")[0] in page.text and "verdict" in page.ids
 
 
-def test_report_shows_what_later_stages_add(pipeline_run, tmp_path, monkeypatch):
-    """summary.json keys other stages write (inferred, warnings, another scored method, a region
-    list with payoffs) appear without the report knowing them in advance; a section module of
-    featuretex.report named in SECTION_MODULES is drawn after the error map."""
+def test_report_shows_what_later_stages_add(pipeline_run, tmp_path):
+    """summary.json keys other stages write (inferred, warnings, another scored method) appear
+    without the report knowing them in advance; the numbered regions are the diagnosis's own, with
+    its payoff estimates, in the table and as pins on the 3D model."""
     import shutil
-    import sys
-    import types
 
     run = tmp_path / "run"
     shutil.copytree(pipeline_run, run)
@@ -415,17 +437,17 @@ def test_report_shows_what_later_stages_add(pipeline_run, tmp_path, monkeypatch)
     summary["inferred"] = [{"what": "up direction", "detail": "from the camera ring (+z)"}]
     summary["warnings"] = ["photo v003 is blurred"]
     summary["heldout"]["touchup"] = {"psnr": 31.25, "ssim": 0.5, "psnr_gaincomp": 31.5, "psnr_tolerant": 33.75}
-    summary["regions"] = [{"class": "geometry", "area": 0.25, "centre": [1.0, 2.0, 3.0],
-                           "payoff_db": {"geometry": 1.5, "texture": 0.25}}]
     (run / "summary.json").write_text(json.dumps(summary))
-    extra = types.ModuleType("featuretex.report.touchup")
-    extra.section_html = lambda r: f'<section id="touchup-test"><h2>Touch-up of {len(r.methods)} methods</h2></section>'
-    monkeypatch.setitem(sys.modules, "featuretex.report.touchup", extra)
     page = _parse(write_report(run))
-    for text in ("up direction", "from the camera ring (+z)", "photo v003 is blurred", "Touched-up model",
-                 "33.75", "payoff db.geometry", "1.5", "Touch-up of 4 methods"):
+    for text in ("up direction", "from the camera ring (+z)", "photo v003 is blurred", "Touched-up model", "33.75"):
         assert text in page.text, text
-    assert "touchup-test" in page.ids
+    data = next(json.loads(t) for a, t in page.scripts if a.get("id") == "viewer3d-data")
+    regions = [r for r in summary.get("regions") or [] if r["class"] in ("geometry", "texture", "uncovered")]
+    assert regions, "the tiny scene's run numbers at least one region"
+    assert [p["n"] for p in data["regions"]] == [r["number"] for r in regions]
+    for r in regions:
+        if r["class"] != "uncovered":
+            assert f"{round(r['payoff_db']['geometry'], 2) + 0.0:+.2f} dB" in page.text
 
 
 def test_details_are_located_on_the_surface_the_held_out_render_shows(pipeline_run):

@@ -30,6 +30,8 @@ class NumberedRegion:
     area: float                # scene units^2
     centre: np.ndarray         # (3,) float64 area-weighted mean position, scene units
     offset: float              # median displacement along the normal inside, scene units (NaN: none)
+    marker: np.ndarray         # (3,) float64 the surface point at the texel farthest from the region's
+                               # edge, scene units: where a number is pinned (inside even a ring)
 
     @property
     def name(self) -> str:
@@ -62,12 +64,21 @@ def number_regions(cls: np.ndarray, area: np.ndarray, pos: np.ndarray, hidden: n
             d = d[np.isfinite(d)]
             found.append(NumberedRegion(0, code, m, float(sums[k]) / total, float(sums[k]),
                                         (pos[m].astype(np.float64) * a[:, None]).sum(0) / max(float(a.sum()), 1e-30),
-                                        float(np.median(d)) if len(d) else float("nan")))
+                                        float(np.median(d)) if len(d) else float("nan"),
+                                        pos[label_texel(m)].astype(np.float64)))
     first = VERDICT_CLASS.get(verdict)
     order = sorted(found, key=lambda r: (r.code != first, list(PROBLEM_CLASSES).index(r.code), -r.share))
     for i, r in enumerate(order, 1):
         r.number = i
     return order
+
+
+def label_texel(mask: np.ndarray) -> tuple[int, int]:
+    """(row, col) of the texel of `mask` farthest from its edge (Euclidean distance transform): a
+    label placed there sits inside the region even when the region is a ring or a crescent."""
+    dist = ndimage.distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1]
+    r, c = np.unravel_index(int(np.argmax(dist)), mask.shape)
+    return int(r), int(c)
 
 
 def label_map(regions: list[NumberedRegion], shape: tuple[int, int]) -> np.ndarray:
@@ -125,8 +136,7 @@ def draw_numbers(img, labels: np.ndarray, entries: list[dict]) -> None:
         m = labels == e["number"]
         if not m.any():
             continue
-        dist = ndimage.distance_transform_edt(np.pad(m, 1))[1:-1, 1:-1]
-        r, c = np.unravel_index(int(np.argmax(dist)), m.shape)
+        r, c = label_texel(m)
         tag = "" if e["class"] == "uncovered" else \
             (" G" if e["payoff_db"]["geometry"] > e["payoff_db"]["texture"] else " T")
         d.text((c, r), f"{e['number']}{tag}", fill=(255, 255, 255), font=font, anchor="mm",

@@ -201,11 +201,13 @@ def fix_offsets(displacement: np.ndarray, movable: np.ndarray) -> np.ndarray:
 
 def region_entries(regions: list, pay: Payoff) -> list[dict]:
     """summary.json `regions`: number, class, share (of the surface), area (scene units^2), centre
-    (scene units), offset (median along the normal, scene units, None unknown), payoff_db."""
+    (area-weighted mean position, scene units), marker (a surface point inside the region, scene
+    units), offset (median along the normal, scene units, None unknown), payoff_db."""
     out = []
     for r in regions:
         out.append({"number": r.number, "class": r.name, "share": round(r.share, 6), "area": float(r.area),
                     "centre": [round(float(c), 6) for c in r.centre],
+                    "marker": [round(float(c), 6) for c in r.marker],
                     "offset": round(r.offset, 6) if math.isfinite(r.offset) else None,
                     "payoff_db": pay.over(r.mask)})
     return out

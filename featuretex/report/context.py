@@ -19,7 +19,6 @@ log = logging.getLogger("featuretex")
 
 VIEWS_FILE = "error_map_views.png"
 PREVIEW_FILE = "preview.png"              # a small still of the delivered model, for batch.html
-VERDICT_CLASS = {"rescan": "uncovered", "fix-geometry": "geometry", "refine-texture": "texture"}
 
 
 @dataclass
@@ -28,9 +27,8 @@ class ErrorMap:
 
     fields: errormap.ErrorFields
     unit: str
-    regions: list[errormap.Region]          # numbered 1.. in this order
+    regions: list[errormap.Region]          # summary.json's numbered regions, in its order
     texture: np.ndarray                     # (T, T, 3) uint8 painted map, islands padded
-    ids: np.ndarray                         # (T, T) int32 region number per texel (0 none)
 
 
 class Page:
@@ -74,15 +72,9 @@ class Page:
     def _error(self) -> ErrorMap:
         with np.load(self.run.path / "error_map.npz") as z:
             size = int(np.asarray(z["geometry"]).shape[0])
-        k = errormap.reduction(size)
-        layout = None
-        if self.model is not None:
-            layout = self._attempt("layout", lambda: errormap.layout_of(self.model.mesh, size // k))
-        fields = errormap.load_fields(self.run.path / "error_map.npz", layout,
-                                      min_views=int(self.run.config_value("diagnose.min_views", 2)), k=k)
-        regions = errormap.find_regions(fields, first=VERDICT_CLASS.get(self.run.verdict or ""))
-        return ErrorMap(fields, str(self.run.summary.get("unit", "")), regions,
-                        errormap.surface_texture(fields), errormap.region_ids(regions, fields.cls.shape[0]))
+        fields = errormap.load_fields(self.run.path / "error_map.npz", k=errormap.reduction(size))
+        regions = errormap.regions_of(self.run.summary.get("regions") or [], fields.region)
+        return ErrorMap(fields, str(self.run.summary.get("unit", "")), regions, errormap.surface_texture(fields))
 
     @cached_property
     def error_views(self) -> errorviews.ErrorViews | None:
@@ -92,7 +84,7 @@ class Page:
             return None
 
         def make() -> errorviews.ErrorViews:
-            views = errorviews.render(self.caster, self.error.texture, self.error.ids)
+            views = errorviews.render(self.caster, self.error.texture, self.error.fields.region)
             errorviews.write_png(self.run.path / VIEWS_FILE, views, f"verdict: {self.run.verdict or 'none'}",
                                  [self.areas_line()])
             return views

@@ -51,7 +51,13 @@ def offset_text(d: float, unit: str) -> str:
     return ("+" if d > 0 else "") + length(d, unit, UNITS.get(unit, 1.0))
 
 
+def _gain(pay: dict[str, float], key: str) -> str:
+    v = pay.get(key)
+    return "—" if v is None or not math.isfinite(v) else f"{round(v, 2) + 0.0:+.2f} dB"
+
+
 def regions_table_html(page: Page) -> str:
+    """The numbered regions as summary.json lists them, with the view that shows each best."""
     err = page.error
     if err is None:
         return ""
@@ -60,23 +66,29 @@ def regions_table_html(page: Page) -> str:
     names = page.error_views.names if page.error_views is not None else []
     shown = page.error_views.shown_in if page.error_views is not None else {}
     unit = err.unit
+    code = {v: k for k, v in errormap.KINDS.items()}
     rows = []
-    for i, r in enumerate(err.regions, 1):
-        code = {v: k for k, v in errormap.KINDS.items()}[r.kind]
+    for r in err.regions:
+        c = code[r.kind]
         area = esc(area_text(r.area, unit)) if r.area is not None else "—"
-        where = ", ".join(f"{c:.3g}" for c in r.centre) + f" {esc(SYMBOLS.get(unit, unit))}" if r.centre else "—"
+        where = ", ".join(f"{v:.3g}" for v in r.centre) + f" {esc(SYMBOLS.get(unit, unit))}" if r.centre else "—"
         off = esc(offset_text(r.offset, unit)) if r.kind == "geometry" else "—"
-        view = esc(names[shown[i]]) if i in shown else '<span class="note">not seen from outside</span>'
-        rows.append(f'<tr><td class="n"><span class="num">{i}</span></td><td>{swatch_img(code, LABELS[code])} '
-                    f'{esc(LABELS[code])}</td><td class="n">{percent(r.share)}</td><td class="n">{area}</td>'
-                    f'<td>{view}</td><td class="n">{where}</td><td class="n">{off}</td>'
+        view = esc(names[shown[r.number]]) if r.number in shown else '<span class="note">not seen from outside</span>'
+        pay = (f'<td class="n">{_gain(r.payoff, "geometry")}</td><td class="n">{_gain(r.payoff, "texture")}</td>'
+               if r.kind != "uncovered" else '<td class="n" colspan="2">rescan</td>')
+        rows.append(f'<tr><td class="n"><span class="num">{r.number}</span></td><td>{swatch_img(c, LABELS[c])} '
+                    f'{esc(LABELS[c])}</td><td class="n">{percent(r.share)}</td><td class="n">{area}</td>'
+                    f'<td>{view}</td><td class="n">{where}</td><td class="n">{off}</td>{pay}'
                     f'<td class="n">{r.uv[0]:.2f}, {r.uv[1]:.2f}</td></tr>')
     return ('<div class="scroll"><table class="regions"><thead><tr><th class="n">#</th><th>largest regions</th>'
             '<th class="n">surface</th><th class="n">area</th><th>best seen</th><th class="n">centre (x, y, z)</th>'
-            '<th class="n">offset along normal</th><th class="n">UV</th>'
+            '<th class="n">offset along normal</th><th class="n">fixing the geometry</th>'
+            '<th class="n">fitting longer</th><th class="n">UV</th>'
             f'</tr></thead><tbody>{"".join(rows)}</tbody></table></div>'
             '<p class="note">Centres are in the scan\'s own axes and units; the offset is how far the photographed '
-            "surface lies outside (+) or inside (−) the mesh.</p>")
+            "surface lies outside (+) or inside (−) the mesh. The two gains are estimates of held-out PSNR made "
+            "from the fitted views alone (see the README: what each fix would gain); read the geometry one as a "
+            "lower bound and use both to rank.</p>")
 
 
 def uvmap_html(page: Page) -> str:
@@ -91,44 +103,8 @@ def uvmap_html(page: Page) -> str:
         return f"{title}{absent('not produced: the diagnose stage has not run')}</section>"
     im = errormap.outline_regions(errormap.painted(err.fields), err.regions, err.fields.cls.shape[0])
     png = ' (<a href="error_map.png">error_map.png</a>, with its legend)' if run.has("error_map.png") else ""
-    return (f"{title}{regions_table_html(page)}{summary_regions_html(page)}"
+    return (f"{title}{regions_table_html(page)}"
             f'<p class="note">The texture layout (UV space, v up) coloured by what limits each part of the surface'
             f'{png}, the same regions outlined and numbered.</p>'
             f'<img class="px uvmap" src="{data_uri(image_png(im))}" alt="error map in texture space, regions numbered">'
             "</section>")
-
-
-def _flat(d: dict, prefix: str = "") -> dict[str, object]:
-    out: dict[str, object] = {}
-    for k, v in d.items():
-        key = f"{prefix}{k}"
-        if isinstance(v, dict):
-            out.update(_flat(v, key + "."))
-        else:
-            out[key] = v
-    return out
-
-
-def _cell(v: object) -> str:
-    if isinstance(v, float):
-        return f"{v:.3g}" if math.isfinite(v) else "—"
-    if isinstance(v, list) and all(isinstance(x, (int, float)) for x in v):
-        return ", ".join(f"{x:.3g}" for x in v)
-    return esc(v)
-
-
-def summary_regions_html(page: Page) -> str:
-    """summary.json's own `regions` list (written by later stages, e.g. with `payoff_db`), shown as
-    it is: one row per region, one column per (dotted) key."""
-    regions = [r for r in page.run.summary.get("regions") or [] if isinstance(r, dict)]
-    if not regions:
-        return ""
-    rows = [_flat(r) for r in regions]
-    keys: dict[str, None] = {}
-    for r in rows:
-        keys.update(dict.fromkeys(r))
-    head = "".join(f"<th>{esc(k.replace('_', ' '))}</th>" for k in keys)
-    body = "".join("<tr>" + "".join(f'<td class="n">{_cell(r.get(k, ""))}</td>' for k in keys) + "</tr>"
-                   for r in rows)
-    return ('<h3>Regions as summary.json lists them</h3>'
-            f'<div class="scroll"><table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>')

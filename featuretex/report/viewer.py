@@ -19,18 +19,19 @@ MODES = (("delivered", "Delivered texture"), ("classical", "Classical bake"), ("
 
 
 def region_pins(page: Page) -> list[dict]:
-    """Per numbered region: its number, class label and the surface point at its label texel
-    (farthest from the region's edge in UV space), in the glTF frame."""
+    """Per numbered region: its number, class label and its marker (a surface point inside it, from
+    summary.json) in the glTF frame."""
     err, model = page.error, page.model
-    if err is None or model is None or err.fields.position is None:
+    if err is None or model is None:
         return []
+    code = {v: k for k, v in errormap.KINDS.items()}
     pins = []
-    for n, r in enumerate(err.regions, 1):
-        pr, pc = errormap.label_point(r.mask)
-        p = err.fields.position[r.box[0] + int(pr), r.box[1] + int(pc)].astype(np.float64)
-        at = model.to_gltf[:3, :3] @ p + model.to_gltf[:3, 3]
-        code = {v: k for k, v in errormap.KINDS.items()}[r.kind]
-        pins.append({"n": n, "at": [round(float(c), 6) for c in at], "label": f"{n}: {LABELS[code]}"})
+    for r in err.regions:
+        if r.marker is None:
+            continue
+        at = model.to_gltf[:3, :3] @ np.asarray(r.marker) + model.to_gltf[:3, 3]
+        pins.append({"n": r.number, "at": [round(float(c), 6) for c in at],
+                     "label": f"{r.number}: {LABELS[code[r.kind]]}"})
     return pins
 
 
