@@ -15,6 +15,7 @@ from PIL import Image
 from scipy.spatial.transform import Rotation
 
 from featuretex import demo
+from featuretex.demo import bundled
 from featuretex.scene.manifest import read_manifest
 from featuretex.scene.mesh import load_mesh, make_atlas
 from featuretex.synth import dent_profile, textured_mesh, write_mesh_obj
@@ -81,7 +82,7 @@ def test_committed_scene_is_what_the_brief_asks():
 
 @needs_assets
 def test_committed_scan_matches_the_generator(tmp_path):
-    """The committed mesh.obj is what demo.py makes today (catches code changed without regenerating)."""
+    """The committed mesh.obj is what featuretex.demo makes today (catches code changed without regenerating)."""
     cfg = demo.DemoConfig()
     scan, _ = demo.scan_jug(cfg)
     v, f, uv = make_atlas(np.asarray(scan.vertices), np.asarray(scan.faces), cfg.atlas)
@@ -204,8 +205,8 @@ def test_ensure_demo_scene_generates_into_the_cache_without_the_repo(tmp_path, m
         calls.append(out)
         return real_build(out, demo.DemoConfig.small(), log=log)
 
-    monkeypatch.setattr(demo, "repo_demo_dir", lambda: tmp_path / "no-repo")
-    monkeypatch.setattr(demo, "build_demo", small_build)
+    monkeypatch.setattr(bundled, "repo_demo_dir", lambda: tmp_path / "no-repo")
+    monkeypatch.setattr(bundled, "build_demo", small_build)
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
     first = demo.ensure_demo_scene()
     assert first == tmp_path / "cache" / "featuretex" / f"demo-{demo.DEMO_VERSION}" / "scene" / "scene.yaml"
