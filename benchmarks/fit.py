@@ -6,7 +6,7 @@ Fits the demo twice from the same start: the default budget, scored on the held-
 every evaluation, and a 4x longer run whose final alignment-tolerant PSNR is the reference.
 time_to_quality_s = fit wall seconds (set-up included, scoring excluded) until the default run's
 held-out tolerant PSNR is within 0.5 dB of that reference. Also: trained object pixels per
-second; achieved FLOP/s of the fit (dense arithmetic, see featuretex.fit.loop.train_flops) as a
+second; achieved FLOP/s of the fit (dense arithmetic, see featuretex.fit.flops.train_flops) as a
 fraction of a dense float32 matmul's FLOP/s measured in this run with the same threads; peak
 RSS. Where the screen decoder runs its convolutions in bfloat16 (fit.precision auto on a CPU with
 AMX), the fraction of a bfloat16 matmul's FLOP/s is printed too, and a short float32 run of the
@@ -40,7 +40,8 @@ from featuretex.bake.baseline import bake_baseline  # noqa: E402
 from featuretex.bake.texel_size import auto_texture_size, median_pixel_footprint  # noqa: E402
 from featuretex.demo import ensure_demo_scene  # noqa: E402
 from featuretex.fit import FitConfig, render_view  # noqa: E402
-from featuretex.fit.loop import run_fit, train_flops  # noqa: E402
+from featuretex.fit.flops import train_flops  # noqa: E402
+from featuretex.fit.loop import fit_scene  # noqa: E402
 from featuretex.model.decoders import resolve_precision  # noqa: E402
 from featuretex.raster.stage import build_gbuffers  # noqa: E402
 from featuretex.raster.uvspace import rasterise_uv  # noqa: E402
@@ -139,8 +140,8 @@ def main() -> None:
                 trace.append({"step": step, "fit_s": round(seconds, 2), **s})
                 log.info("  %s step %d at %.1f s: %s", tag, step, seconds, s)
 
-        return run_fit(scene, gbuffers, base.texture_lin, base.seen, c, run, seed=0, quiet=True,
-                       config_hash="bench", eval_hook=hook)
+        return fit_scene(scene, gbuffers, base.texture_lin, base.seen, c, run, seed=0, quiet=True,
+                         config_hash="bench", eval_hook=hook)
 
     trace: list[dict] = []
     res = fit(cfg, "default", trace)

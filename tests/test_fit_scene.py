@@ -14,7 +14,6 @@ from featuretex import metrics, synth
 from featuretex.bake.baseline import bake_baseline
 from featuretex.errors import InputError
 from featuretex.fit import FitConfig, fit_scene, render_texel_head, render_view
-from featuretex.fit.loop import run_fit
 from featuretex.model.lod import uv_footprint, uv_jacobian
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
@@ -151,8 +150,8 @@ def test_resume_after_interruption_matches_uninterrupted_run(tiny, tmp_path):
 
     run = tmp_path / "cut"
     with pytest.raises(KeyboardInterrupt):
-        run_fit(scene, gbuffers, base.texture_lin, base.seen, cfg, run, seed=1, quiet=True,
-                config_hash="resume", step_hook=interrupt)
+        fit_scene(scene, gbuffers, base.texture_lin, base.seen, cfg, run, seed=1, quiet=True,
+                  config_hash="resume", step_hook=interrupt)
     assert (run / "fit" / "checkpoint.pt").is_file() and not (run / "fit" / "model.pt").exists()
     # a checkpoint of another configuration is refused with a clear message
     with pytest.raises(InputError, match="different scene, fit configuration"):

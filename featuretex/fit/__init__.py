@@ -1,8 +1,10 @@
-"""The learned fit: sampler, losses, optimisation loop, checkpoints, and renders of the result."""
+"""The learned fit: sampler, losses, optimisation loop, its state and files, checkpoints, FLOP
+accounting, clean stopping, and renders of the result."""
 
 from featuretex.lazy import lazy_exports
 
-_EXPORTS = {"FitConfig": "featuretex.fit.config", "FitResult": "featuretex.fit.loop", "fit_scene": "featuretex.fit.loop",
+_EXPORTS = {"FitConfig": "featuretex.fit.config", "FitResult": "featuretex.fit.outputs",
+            "fit_scene": "featuretex.fit.loop",
             "render_view": "featuretex.fit.render", "render_texel_head": "featuretex.fit.render",
             "render_decoder_residual": "featuretex.fit.render", "aligned_photo": "featuretex.fit.render"}
 __all__ = list(_EXPORTS)

@@ -2,39 +2,37 @@
 
 Held-out views are never fitted: they only enter `evaluate`, rendered with the reference exposure
 and no alignment. The loop checkpoints every `checkpoint_every` steps and on Ctrl-C / SIGTERM
-(the signal only raises a flag; the step in flight finishes first, so a checkpoint is always a
-consistent state), and a re-run with the same run directory resumes from it.
+(`stop.py`), and a re-run with the same run directory resumes from it; the state and files it
+writes are in `outputs.py`, its arithmetic count in `flops.py`.
 """
 
 from __future__ import annotations
 
-import json
 import logging
 import math
 import signal
-import threading
 import time
-from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Callable
 
 import numpy as np
 import torch
 
 import featuretex.model  # noqa: F401  (registers the built-in decoders)
-from featuretex.atomic import atomic_path, write_json
 from featuretex.errors import input_error
 from featuretex.fit import checkpoint as ckpt
 from featuretex.fit.config import FitConfig, check_fit_config
+from featuretex.fit.flops import describe
 from featuretex.fit.losses import masked_ssim, psnr
+from featuretex.fit.outputs import FitResult, LoopState, checkpoint_payload, load_fitted, write_outputs
 from featuretex.fit.photoloss import photometric_loss
 from featuretex.fit.rebake import rebake_colour_layer
 from featuretex.fit.render import render_viewdata
 from featuretex.fit.sampler import CropSampler, assemble, warped_targets
+from featuretex.fit.stop import StopRequest
 from featuretex.fit.viewdata import ViewData, mesh_tables, prepare_view
 from featuretex.model.corrections import ViewCorrections, grid_shape
-from featuretex.threads import job_threads
-from featuretex.model.decoders import parameter_count, resolve_precision
+from featuretex.model.decoders import resolve_precision
 from featuretex.model.scene_model import SceneModel
 from featuretex.progress import Progress
 from featuretex.raster.gbuffer import GBuffer
@@ -42,44 +40,11 @@ from featuretex.raster.uvspace import rasterise_uv
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
 from featuretex.stages import DAMAGED, discard
+from featuretex.threads import job_threads
 
 log = logging.getLogger("featuretex")
 TRAIN_LOG_EVERY = 10  # steps between entries of history["train"]
 
-
-@dataclass
-class FitResult:
-    model: SceneModel
-    history: dict[str, Any]
-    corrections: dict[str, np.ndarray]
-    timings: dict[str, float]
-    stopped: str = "steps"     # how the fit ended: "steps" | "plateau" (also when loaded from its files)
-    loaded: bool = False       # read from the run folder's fit files, not fitted in this run
-    stats: dict[str, float] = field(default_factory=dict)  # this session: steps, pixels fitted / rendered
-
-
-@dataclass
-class LoopState:
-    step: int = 0
-    elapsed_s: float = 0.0              # wall time of earlier sessions of this fit (resume)
-    best_loss: float = math.inf
-    bad_evals: int = 0
-    window: list[float] = field(default_factory=list)   # losses since the last eval
-    history: dict[str, Any] = field(default_factory=lambda: {
-        "step": [], "loss": [], "heldout_psnr": [], "heldout_ssim": [], "elapsed_s": [],
-        "train": {"step": [], "loss": []}})
-
-    def to_dict(self) -> dict[str, Any]:
-        return {"step": self.step, "elapsed_s": self.elapsed_s, "best_loss": self.best_loss,
-                "bad_evals": self.bad_evals, "window": list(self.window), "history": self.history}
-
-    @classmethod
-    def from_dict(cls, d: dict[str, Any]) -> "LoopState":
-        return cls(step=int(d["step"]), elapsed_s=float(d["elapsed_s"]), best_loss=float(d["best_loss"]),
-                   bad_evals=int(d["bad_evals"]), window=[float(x) for x in d["window"]], history=d["history"])
-
-
-# --- set-up ------------------------------------------------------------------------------------
 
 def build_model(cfg: FitConfig, init_texture_lin: np.ndarray, names: list[str], sizes: list[tuple[int, int]],
                 reference: int, rng: np.random.Generator) -> SceneModel:
@@ -128,39 +93,6 @@ def lr_factor(step: int, cfg: FitConfig) -> float:
     t = min(1.0, (step - cfg.warmup) / span)
     return cfg.final_lr_frac + (1 - cfg.final_lr_frac) * 0.5 * (1 + math.cos(math.pi * t))
 
-
-def forward_flops_per_pixel(model: SceneModel) -> dict[str, int]:
-    """Dense arithmetic per pixel of one forward pass (texel gathers and activations not counted)."""
-    out = model.decoder.flops_per_pixel()
-    out["sampling"] = 2 * 8 * model.texture.out_channels   # upper bound: 8 trilinear taps per layer
-    return out
-
-
-def train_flops(model: SceneModel, pixels_rendered: float, pixels_covered: float) -> float:
-    """Dense arithmetic of training steps that rendered `pixels_rendered` crop pixels, of which
-    `pixels_covered` show the surface: forward (screen decoder on every crop pixel, SSIM's five
-    11-tap separable blurs of 3 channels, head and texel filtering on surface pixels) times 3 for
-    forward + backward (common practice: a backward pass costs about twice the forward)."""
-    fl = forward_flops_per_pixel(model)
-    ssim = 5 * 3 * 2 * 11 * 2
-    per_rendered = fl.get("screen", 0) + ssim
-    per_covered = fl["head"] + fl["sampling"]
-    return 3.0 * (per_rendered * pixels_rendered + per_covered * pixels_covered)
-
-
-def describe(model: SceneModel) -> str:
-    fl = forward_flops_per_pixel(model)
-    tex = model.texture
-    screen = parameter_count(model.decoder.screen) if model.decoder.screen is not None else 0
-    corr = parameter_count(model.corrections) if model.corrections is not None else 0
-    return (f"fit model: colour layer {tex.size}x{tex.size}x3, latent layer {tex.latent_size}x{tex.latent_size}"
-            f"x{tex.channels} ({tex.colour.numel() + tex.latent.numel():,} params), "
-            f"decoder '{model.decoder_name}': head {parameter_count(model.decoder.head)} + screen {screen:,} "
-            f"params, corrections {corr:,} params; per-pixel forward FLOPs: sampling <= {fl['sampling']}, "
-            f"head {fl['head']}, screen {fl.get('screen', 0):,} ({model.precision} convolutions)")
-
-
-# --- one step and evaluation ----------------------------------------------------------------------
 
 def cache_geometry(views: list[ViewData], budget_gb: float) -> int:
     """Precompute crop geometry for as many views as `budget_gb` holds, in the given order (fitted
@@ -227,110 +159,22 @@ def evaluate(model: SceneModel, views: list[ViewData]) -> tuple[float | None, fl
     return float(np.dot(w, ps)), float(np.dot(w, ss))
 
 
-# --- checkpoints and outputs ------------------------------------------------------------------
-
-def _checkpoint_payload(key: str, model: SceneModel, opt: torch.optim.Optimizer, sampler: CropSampler,
-                        state: LoopState) -> dict[str, Any]:
-    return {"format": ckpt.FORMAT, "hash": key, "meta": model.meta(), "model": model.state_dict(),
-            "optim": opt.state_dict(), "sampler": sampler.state_dict(), "torch_rng": torch.get_rng_state(),
-            "loop": state.to_dict()}
-
-
-def corrections_arrays(model: SceneModel, scene: Scene) -> dict[str, np.ndarray]:
-    """Per scene view (fitted and held out): colour matrix, bias, alignment field, flags."""
-    corr = model.corrections
-    assert corr is not None
-    fitted = corr.to_numpy()
-    gh, gw = corr.align.shape[2:]
-    names = [v.name for v in scene.views]
-    V = len(names)
-    M = np.tile(np.eye(3, dtype=np.float32), (V, 1, 1))
-    b = np.zeros((V, 3), np.float32)
-    a = np.zeros((V, gh, gw, 2), np.float32)
-    is_fit = np.zeros(V, bool)
-    for i, n in enumerate(names):
-        j = model.view_index(n)
-        if j is not None:
-            M[i], b[i], a[i], is_fit[i] = fitted["colour_matrix"][j], fitted["colour_bias"][j], \
-                fitted["alignment_px"][j], True
-    sizes = np.array([[v.camera.width, v.camera.height] for v in scene.views], np.int64)
-    return {"views": np.array(names), "fitted": is_fit, "reference": np.array(corr.names[corr.reference]),
-            "colour_matrix": M, "colour_bias": b, "alignment_px": a, "image_size": sizes}
-
-
-def _write_outputs(fit_dir: Path, key: str, model: SceneModel, scene: Scene, history: dict[str, Any],
-                   timings: dict[str, float]) -> dict[str, np.ndarray]:
-    corr = corrections_arrays(model, scene)
-    with atomic_path(fit_dir / "corrections.npz") as tmp:
-        np.savez_compressed(tmp, **corr)
-    write_json(fit_dir / "history.json", {**history, "timings_s": timings})
-    ckpt.save(fit_dir / "model.pt", {"format": ckpt.FORMAT, "hash": key, "meta": model.meta(),
-                                     "model": model.state_dict(), "timings_s": timings})
-    return corr
-
-
-def load_fitted(fit_dir: Path, saved: dict[str, Any]) -> FitResult:
-    """The finished fit from its files; raises (DAMAGED or RuntimeError) when one does not read back."""
-    model = SceneModel.from_meta(saved["meta"])
-    model.load_state_dict(saved["model"])
-    model.eval()
-    hist = json.loads((fit_dir / "history.json").read_text())
-    timings = dict(saved.get("timings_s", hist.pop("timings_s", {})))
-    hist.pop("timings_s", None)
-    with np.load(fit_dir / "corrections.npz") as z:
-        corr = {k: z[k] for k in z.files}
-    return FitResult(model=model, history=hist, corrections=corr, timings=timings,
-                     stopped=str(hist.get("stopped", "steps")), loaded=True)
-
-
-class _StopRequest:
-    """Ctrl-C / SIGTERM set a flag (a second Ctrl-C interrupts at once); handlers restored on exit."""
-
-    def __init__(self) -> None:
-        self.signum: int | None = None
-        self._old: dict[int, Any] = {}
-
-    def _handler(self, signum: int, frame: Any) -> None:
-        if self.signum == signal.SIGINT and signum == signal.SIGINT:
-            raise KeyboardInterrupt
-        self.signum = signum
-        log.warning("fit: stop requested; checkpointing after this step (Ctrl-C again to abort at once)")
-
-    def __enter__(self) -> "_StopRequest":
-        if threading.current_thread() is threading.main_thread():
-            for s in (signal.SIGINT, signal.SIGTERM):
-                self._old[s] = signal.signal(s, self._handler)
-        return self
-
-    def __exit__(self, *exc: Any) -> None:
-        for s, h in self._old.items():
-            signal.signal(s, h)
-
-
-# --- the public entry point ---------------------------------------------------------------------
-
 def fit_scene(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.ndarray,
               init_valid: np.ndarray | None, cfg: FitConfig, run_dir: Path, *, seed: int, quiet: bool,
-              config_hash: str) -> FitResult:
+              config_hash: str, eval_hook: Callable[[int, SceneModel, float], None] | None = None,
+              step_hook: Callable[[int], None] | None = None, warm: SceneModel | None = None) -> FitResult:
     """Fit (or resume, or load) the model of `scene` into `run_dir/fit/`.
 
     init_texture_lin: (T, T, 3) float32 linear starting colour (the baseline bake, gutter filled);
     init_valid: (T, T) bool texels it measured (non-finite texels elsewhere are filled).
     Writes fit/model.pt, fit/history.json, fit/corrections.npz; while running, fit/checkpoint.pt.
+    eval_hook(step, model, fit seconds so far) runs after every evaluation (its own time is not
+    counted), step_hook(step) after every step (tests use it to interrupt). warm: a fitted model of
+    the same configuration and views to start from (its texture, decoder and corrections) instead of
+    the initial texture (the geometry touch-up re-fits on a moved surface with the same UVs).
     """
-    return run_fit(scene, gbuffers, init_texture_lin, init_valid, cfg, Path(run_dir), seed=seed, quiet=quiet,
-                   config_hash=config_hash)
-
-
-def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.ndarray,
-            init_valid: np.ndarray | None, cfg: FitConfig, run_dir: Path, *, seed: int, quiet: bool,
-            config_hash: str, eval_hook: Callable[[int, SceneModel, float], None] | None = None,
-            step_hook: Callable[[int], None] | None = None, warm: SceneModel | None = None) -> FitResult:
-    """fit_scene with hooks: eval_hook(step, model, fit seconds so far) after every evaluation (its own
-    time is not counted), step_hook(step) after every step (tests use it to interrupt). warm: a fitted
-    model of the same configuration and views to start from (its texture, decoder and corrections)
-    instead of the initial texture (the geometry touch-up re-fits on a moved surface with the same UVs)."""
-    check_fit_config(cfg)   # the pipeline checks first; this is for callers of run_fit itself
+    check_fit_config(cfg)   # the pipeline checks first; this is for callers of fit_scene itself
+    run_dir = Path(run_dir)
     key = ckpt.fit_hash(config_hash, cfg, seed)
     fit_dir = run_dir / "fit"
     model_path, ck_path = fit_dir / "model.pt", fit_dir / "checkpoint.pt"
@@ -427,13 +271,13 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
             hook_s += time.perf_counter() - t
 
     def save_checkpoint() -> None:
-        ckpt.save(ck_path, _checkpoint_payload(key, model, opt, sampler,
+        ckpt.save(ck_path, checkpoint_payload(key, model, opt, sampler,
                                                LoopState(**{**state.__dict__, "elapsed_s": fit_seconds()})))
 
     bar = Progress(cfg.steps, "fit", "step", quiet=quiet, initial=state.step)
     stopped = "steps"
     try:
-        with _StopRequest() as stop:
+        with StopRequest() as stop:
             if state.step == 0 and not state.history["step"]:
                 do_eval()
             while state.step < cfg.steps:
@@ -484,7 +328,7 @@ def run_fit(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.nda
     timings = {k: round(v, 3) for k, v in timings.items()}
     state.history["steps_done"] = state.step
     state.history["stopped"] = stopped
-    corr = _write_outputs(fit_dir, key, model, scene, state.history, timings)
+    corr = write_outputs(fit_dir, key, model, scene, state.history, timings)
     if ck_path.exists():
         ck_path.unlink()
     model.eval()

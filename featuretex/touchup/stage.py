@@ -28,7 +28,7 @@ from featuretex.atomic import atomic_path, write_json
 from featuretex.bake.neural import bake_model
 from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.grid import texel_areas
-from featuretex.fit.loop import FitResult, run_fit
+from featuretex.fit.loop import FitResult, fit_scene
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
 from featuretex.scene.loaded import Scene
@@ -166,8 +166,8 @@ def _refit(st: RoundState, prev: RoundState, scene: Scene, fit_cfg, cfg, folder:
     moved_scene = dataclasses.replace(scene, mesh=st.mesh)
     gbuffers, _ = build_gbuffers(moved_scene, Path(cfg_out(folder)) / "cache" / "gbuffer", cfg.raster.backend,
                                  quiet=cfg.quiet)
-    fit = run_fit(moved_scene, gbuffers, prev.texture_lin, None, fit_cfg, folder, seed=cfg.seed, quiet=cfg.quiet,
-                  config_hash=rkey, warm=prev.fit.model if prev.fit is not None else None)
+    fit = fit_scene(moved_scene, gbuffers, prev.texture_lin, None, fit_cfg, folder, seed=cfg.seed, quiet=cfg.quiet,
+                    config_hash=rkey, warm=prev.fit.model if prev.fit is not None else None)
     texels = rasterise_uv(st.mesh, size)
     st.texture_lin = bake_model(moved_scene, gbuffers, texels, fit.model,
                                 dataclasses.replace(cfg.bake, gutter=cfg.texture.gutter)).texture_lin
@@ -185,8 +185,8 @@ def _attach(st: RoundState, scene: Scene, fit_cfg, cfg, folder: Path, rkey: str,
         moved_scene = dataclasses.replace(scene, mesh=st.mesh)
         st.gbuffers, _ = build_gbuffers(moved_scene, Path(cfg_out(folder)) / "cache" / "gbuffer",
                                         cfg.raster.backend, quiet=cfg.quiet)
-        st.fit = run_fit(moved_scene, st.gbuffers, prev.texture_lin, None, fit_cfg, folder, seed=cfg.seed,
-                         quiet=cfg.quiet, config_hash=rkey, warm=prev.fit.model if prev.fit is not None else None)
+        st.fit = fit_scene(moved_scene, st.gbuffers, prev.texture_lin, None, fit_cfg, folder, seed=cfg.seed,
+                           quiet=cfg.quiet, config_hash=rkey, warm=prev.fit.model if prev.fit is not None else None)
     return st
 
 
