@@ -15,11 +15,14 @@ from featuretex.scene.mesh import SceneMesh, smooth_normals
 from featuretex.scene.winding import facing_share, orient_outward
 
 
-def _scene(tmp_path):
+def _scene(tmp_path, inside_out: bool = False):
     mesh = synth.textured_sphere(0.1, synth.checker_texture(64, 4), n_lat=12, n_lon=24)
     cam = Camera(id="cam0", model="pinhole", width=64, height=48, fx=60.0, fy=60.0, cx=31.5, cy=23.5)
     views = [(f"v{i:02d}", cam, p) for i, p in enumerate(synth.orbit_poses(4, 0.5, [20.0]))]
     shots = synth.render_views(mesh, views, lit=False)
+    if inside_out:                                   # the file as an exporter that winds inwards writes it
+        mesh = mesh.copy()
+        mesh.faces = np.ascontiguousarray(mesh.faces[:, ::-1])
     path = synth.write_scene(tmp_path / "s", mesh, [s[0] for s in shots], [s[1] for s in shots], views,
                              [False, False, False, True], image_format="png")
     return load_scene(path)
@@ -61,3 +64,12 @@ def test_mixed_winding_is_said_and_kept(tmp_path):
     assert 0.5 < share < 0.9
     same, warnings = orient_outward(mixed, scene.views, "s.yaml")
     assert same is mixed and len(warnings) == 1 and "mixed" in warnings[0]
+
+
+def test_loading_an_inside_out_scene_works_outward_and_says_so(tmp_path):
+    scene = _scene(tmp_path / "out", inside_out=True)
+    assert _volume(scene.mesh) > 0                             # reference: trimesh's signed volume
+    assert any("inside out" in w for w in scene.warnings)
+    plain = _scene(tmp_path / "in")
+    assert not any("inside out" in w or "mixed" in w for w in plain.warnings)
+    np.testing.assert_allclose(scene.mesh.normals, plain.mesh.normals, atol=1e-6)

@@ -16,6 +16,7 @@ from featuretex.scene.manifest import Manifest, View, read_manifest
 from featuretex.scene.mesh import SceneMesh, load_mesh
 from featuretex.scene.sanity import IMAGE_HINT, check_scene, coarse_mask, photo_is_mask, two_level_light
 from featuretex.scene.up import UpAxis, scene_up
+from featuretex.scene.winding import orient_outward
 
 PHOTO_CACHE_BYTES = 1 << 30  # decoded photos kept in memory; older ones are decoded again when asked for
 
@@ -87,13 +88,16 @@ def load_scene(path: str | Path) -> Scene:
     """Read, validate and load a scene (mesh decoded; photos on demand). Raises InputError.
 
     Every photo and mask is decoded once here, so a damaged file stops the run before any work, and
-    the scene as a whole is checked (featuretex.scene.sanity) before any expensive stage.
+    the scene as a whole is checked (featuretex.scene.sanity) before any expensive stage. A mesh the
+    cameras see inside out is worked with its faces reversed (featuretex.scene.winding), with a
+    warning.
     """
     man = read_manifest(path)
     masks, light = check_images(man)
     mesh = load_mesh(man.mesh, str(man.path))
     warnings = check_scene(man, mesh, masks, light)
-    return Scene(manifest=man, mesh=mesh, warnings=warnings)
+    mesh, turned = orient_outward(mesh, man.views, str(man.path))   # exports often wind inside out
+    return Scene(manifest=man, mesh=mesh, warnings=warnings + turned)
 
 
 def _lossless(p: Path) -> bool:
