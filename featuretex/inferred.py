@@ -32,7 +32,7 @@ def _working_resolution(per_view: dict[str, Any]) -> dict[str, str] | None:
     lo, hi = min(scales[n] for n in reduced), max(scales[n] for n in reduced)
     span = f"{lo:.2f}" if abs(hi - lo) < 0.005 else f"{lo:.2f} to {hi:.2f}"
     return _item("working resolution", f"{len(reduced)} of {len(scales)} photos are worked on reduced to {span} "
-                 "of their resolution (about one photo pixel per texel) and cropped to the object "
+                 "of their resolution (about two working pixels per texel edge) and cropped to the object "
                  "(per view: working_resolution)")
 
 

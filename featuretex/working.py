@@ -5,9 +5,10 @@ A 12-45 MP photo holds far more pixels than the texture can use. Per view the ru
 * the texture size, from the photos' footprint on the surface (one texel per median photo pixel,
   a power of two within texture.min_size..max_size; `texture.size` when given). The footprint is
   measured on coarse G-buffers (longest side COARSE_SIDE), never on full-size ones;
-* the reduction: about one photo pixel per texel of that texture (photos holding less than
-  AUTO_MIN_FACTOR photo pixels per texel edge are kept as they are: a power-of-two texture size is
-  within that factor of the photos' density anyway), never above the photo's own resolution;
+* the reduction: about SAMPLES_PER_TEXEL_EDGE working pixels per texel edge of that texture
+  (photos holding less than AUTO_MIN_FACTOR times that are kept as they are: a power-of-two
+  texture size is within that factor of the photos' density anyway), never above the photo's own
+  resolution;
   `photos.scale` fixes it and `photos.max_side` caps the working image's longest side;
 * the crop: the box of the object (the mask's box joined with the box of the projected mesh, so
   the silhouette check still sees both outlines; the mesh alone without a mask) plus MARGIN_PX
@@ -51,7 +52,11 @@ from featuretex.working_config import PhotoConfig
 
 log = logging.getLogger("featuretex")
 
-AUTO_MIN_FACTOR = math.sqrt(2)  # photo pixels per texel edge below which photos are kept at full size
+# Two samples per texel edge (the sampling theorem's rate for detail at the texel scale): at one,
+# the area filter and the bake's bilinear look-ups blur twice and the texture loses detail the
+# photos hold (benchmarks/capture.py measures both against full resolution).
+SAMPLES_PER_TEXEL_EDGE = 2.0
+AUTO_MIN_FACTOR = math.sqrt(2)  # reduction below which photos are kept at full size
 MARGIN_PX = 64                  # working pixels kept around the object box (half a default fit crop)
 COARSE_SIDE = 512               # longest side of the G-buffers that measure the footprint, pixels
 FOOTPRINT_SAMPLES = 25_000      # covered coarse pixels per view that enter the texture size
@@ -189,7 +194,8 @@ def plan_working(scene: Scene, photos: PhotoConfig, texture_size: int, min_size:
             factor = 1.0 / photos.scale
         else:
             ratio = edge / foot[v.name]     # photo pixels per texel edge (NaN: the view misses the mesh)
-            factor = ratio if ratio > AUTO_MIN_FACTOR else 1.0
+            factor = ratio / SAMPLES_PER_TEXEL_EDGE
+            factor = factor if factor > AUTO_MIN_FACTOR else 1.0
         box = None
         if photos.crop:
             mask = load_mask(v.mask, scene.file, v.name, (v.camera.width, v.camera.height))

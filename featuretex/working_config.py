@@ -12,7 +12,7 @@ MIN_SIDE = 64   # smallest photos.max_side, pixels: below it a working image sho
 
 @dataclass
 class PhotoConfig:
-    # working size / photo size; 0 = automatic (about one photo pixel per texel of the texture in use)
+    # working size / photo size; 0 = automatic (about two working pixels per texel edge of the texture in use)
     scale: float = setting(0.0, ge=0, le=1, check=lambda v: v == 0 or v > 0, expect="0 (automatic) or (0, 1]")
     # cap on the longest side of a working image, pixels; 0 = none
     max_side: int = setting(0, ge=0, check=lambda v: v == 0 or v >= MIN_SIDE, expect=f"0 (no cap) or >= {MIN_SIDE}")
