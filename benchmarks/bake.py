@@ -3,7 +3,7 @@
     python benchmarks/bake.py [--scene PATH/scene.yaml] [--run DIR] [--steps N]
 
 Fits the demo (or loads the fit already in --run DIR), bakes the model, and scores baseline,
-neural and baked renders at the held-out views side by side in this one run. Targets (issue 4):
+neural and baked renders at the held-out views side by side in this one run. Targets:
 baked alignment-tolerant PSNR >= baseline + 1.5 dB, plain PSNR >= baseline - 0.2 dB,
 bake gap (neural - baked, tolerant) <= 1 dB, seam ratio at held-out views <= 1.5.
 The last printed line is a JSON object.

@@ -1,4 +1,4 @@
-"""Time-to-quality of the learned fit on the demo scene (issue 3).
+"""Time-to-quality of the learned fit on the demo scene.
 
     python benchmarks/fit.py [--run DIR] [--steps N] [--ablations]
 

@@ -8,7 +8,7 @@
    on the *same* rays, side by side in this run (best of R, interleaved; acceleration structures
    built before timing). `ratio_to_raw` = our rays/s / intersects_id's rays/s (target >= 0.7).
 2. The demo scene: every view's G-buffer from a cold cache, in a child process so its peak RSS
-   is its own. Target (issue 2): <= 15 s on 2 cores.
+   is its own. Target: <= 15 s on 2 cores.
 
 Last printed line: a JSON object.
 """

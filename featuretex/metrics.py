@@ -1,4 +1,5 @@
-"""Image quality scores of a render against a photo, inside the object mask (DESIGN §3, §4).
+"""Image quality scores of a render against a photo, inside the object mask (docs/contracts.md,
+sections 4 and 5).
 
 All images are (H, W, C) float arrays; `*_srgb` are sRGB-encoded values in [0, 1], `*_lin` are
 linear light in [0, 1]. `mask` is (H, W) bool, True where a pixel is scored. Scores:
@@ -122,7 +123,8 @@ def _shift_sse(render: np.ndarray, photo: np.ndarray, mask: np.ndarray, tile: in
     render, photo: (H, W, C) float64; mask: (H, W) bool. Returns sse, n: (TH, TW, S, S) with
     S = 2 * radius + 1, where [.., i, j] compares render pixel q with photo pixel
     q + (i - radius, j - radius), counting pixels valid in both (times C). Compiled: the numpy
-    form with sliding windows took 498 ms per 640 x 480 view, this 9 ms (measured side by side).
+    form with sliding windows builds large temporaries for every shift; the compiled loops accumulate
+    in place.
     """
     h, w, c = render.shape
     th, tw = -(-h // tile), -(-w // tile)

@@ -15,7 +15,7 @@ from featuretex.scene.manifest import View, view_file_stem
 
 
 def score_mask(scene: Scene, view: View, gbuf: GBuffer) -> np.ndarray:
-    """(H, W) bool: G-buffer coverage ∩ photo mask (DESIGN §3)."""
+    """(H, W) bool: G-buffer coverage ∩ photo mask (docs/contracts.md, section 4)."""
     m = np.array(gbuf.coverage)
     pm = scene.photo_mask(view)
     return m & pm if pm is not None else m

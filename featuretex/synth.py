@@ -4,7 +4,7 @@ Used by the bundled demo and by tests that need a scene whose truth is known (a 
 with a known texture, a dent of known depth, parts no camera sees).
 
 World frame: any; `orbit_poses` assumes +z up. Camera frame: OpenCV (+x right, +y down,
-+z forward), pixel (0, 0) is the centre of the top-left pixel (DESIGN §2).
++z forward), pixel (0, 0) is the centre of the top-left pixel (docs/contracts.md, section 5).
 
 What `render_views` returns, in linear light:
 
@@ -511,7 +511,7 @@ def write_scene(folder: str | Path, scan_mesh: trimesh.Trimesh, photos: Sequence
                 unit: str = "meter", image_format: str = "jpg", jpeg_quality: int = 95,
                 exposure_jitter: float = 0.0, white_balance_jitter: float = 0.0, noise_sigma: float = 0.0,
                 pose_noise_deg: float = 0.0, pose_noise_m: float = 0.0, seed: int = 0) -> Path:
-    """Write a scene folder per DESIGN §2 and return the path of its scene.yaml.
+    """Write a scene folder (docs/contracts.md, section 1) and return the path of its scene.yaml.
 
     photos: per view (H, W, 3) float32 linear RGB; masks: per view (H, W) bool (True = object) or None.
     Files: mesh.obj (uv kept when present), images/<name>.<jpg|png> (sRGB 8-bit, after

@@ -16,7 +16,7 @@ def test_decode_matches_iec_formula():
 
 
 def test_published_check_values():
-    # Check values from the IEC 61966-2-1 transfer function (computed by hand, from memory):
+    # Check values of the IEC 61966-2-1 transfer function, ((c + 0.055) / 1.055)^2.4 above 0.04045, c / 12.92 below:
     # 8-bit code 128 -> linear 0.2158605; code 188 -> 0.5028865; code 10 -> 0.0030353 (linear segment)
     codes = np.array([10, 128, 188, 255]) / 255.0
     expect = np.array([0.0030353, 0.2158605, 0.5028865, 1.0])

@@ -58,7 +58,7 @@ def test_small_demo_is_a_valid_scene(small_runs):
 
 
 @needs_assets
-def test_committed_scene_is_what_the_brief_asks():
+def test_committed_scene_has_the_documented_views_cameras_and_unit():
     path = demo.ensure_demo_scene()
     assert path == ASSETS / "scene" / "scene.yaml"
     man = read_manifest(path)

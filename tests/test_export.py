@@ -275,13 +275,13 @@ def _pyrender(path: Path, view) -> tuple[np.ndarray, np.ndarray]:
     tm = trimesh.load(path, force="mesh", process=False)
     pm = pyrender.Mesh.from_trimesh(tm, smooth=True)
     for prim in pm.primitives:
-        # nearest texel: pyrender filters raw sRGB bytes, viewers filter linear values (DESIGN §7)
+        # nearest texel: pyrender filters raw sRGB bytes, viewers filter linear values (docs/contracts.md, section 6)
         prim.material.baseColorTexture.sampler = pyrender.Sampler(magFilter=pyrender.GLTF.NEAREST,
                                                                   minFilter=pyrender.GLTF.NEAREST)
     scene = pyrender.Scene(bg_color=[0.0, 0.0, 0.0, 0.0], ambient_light=[0.0, 0.0, 0.0])
     scene.add(pm)
     cam = view.camera
-    # GL pixel centres sit at +0.5 from OpenCV's (DESIGN §7); explicit zfar
+    # GL pixel centres sit at +0.5 from OpenCV's (docs/contracts.md, section 6); explicit zfar
     pc = pyrender.IntrinsicsCamera(cam.fx, cam.fy, cam.cx + 0.5, cam.cy + 0.5, znear=0.05, zfar=100.0)
     # camera-to-world, and from our +y down / +z forward axes to OpenGL's +y up / -z forward
     scene.add(pc, pose=np.linalg.inv(view.world_to_camera) @ np.diag([1.0, -1.0, -1.0, 1.0]))

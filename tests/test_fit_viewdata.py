@@ -1,8 +1,8 @@
 """The fit's per-view data computed per crop equals the full-frame computation, and is compact.
 
 Reference everywhere: full-frame arrays from the G-buffer / mesh interpolation code
-(GBuffer.uv / position / normal, lod.uv_footprint) combined as the fit did before it worked per
-crop (viewdata.geometry_inputs of earlier versions), and the photo as Scene.photo decodes it.
+(GBuffer.uv / position / normal, lod.uv_footprint) combined over the whole frame, and the photo as
+Scene.photo decodes it.
 """
 
 import dataclasses

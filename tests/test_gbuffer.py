@@ -52,7 +52,7 @@ def test_depth_matches_pyrender():
     cam = Camera("c", "pinhole", 320, 240, 300.0, 310.0, 160.3, 118.7)
     w2c = look_at([0.3, -0.5, 2.5])
     gb = EmbreeRasteriser(mesh).render(View("v", None, None, cam, w2c))
-    # reference: pyrender OpenGL depth. GL pixel centres sit at +0.5 (DESIGN §7), GL camera looks down -z
+    # reference: pyrender OpenGL depth. GL pixel centres sit at +0.5 (docs/contracts.md, section 6), GL camera looks down -z
     scene = pyrender.Scene()
     scene.add(pyrender.Mesh.from_trimesh(trimesh.Trimesh(mesh.vertices, mesh.faces, process=False)))
     gl_cam = pyrender.IntrinsicsCamera(cam.fx, cam.fy, cam.cx + 0.5, cam.cy + 0.5, znear=0.05, zfar=20.0)
@@ -121,7 +121,7 @@ def test_compact_storage_and_cache(tmp_path):
     mesh = scene_mesh(tm)
     cam = Camera("c", "pinhole", 64, 48, 60.0, 60.0, 31.5, 23.5)
     view = View("v", None, None, cam, look_at([0, 0, 3.0]))
-    assert GBUFFER_DTYPE.itemsize == 16  # <= 24 bytes/pixel target (issue 2)
+    assert GBUFFER_DTYPE.itemsize == 16  # the cache's record size (docs/contracts.md, section 3)
 
     class Counting(EmbreeRasteriser):
         calls = 0

@@ -247,7 +247,7 @@ def test_written_scene_is_accepted_by_the_manifest_reader(tmp_path):
     mesh, photos, masks, views = _tiny_scene_inputs()
     path = synth.write_scene(tmp_path / "s", mesh, photos, masks, views, [False, True, False], unit="centimeter",
                              image_format="png", seed=1)
-    man = read_manifest(path)          # featuretex's own reader is the contract (DESIGN §2)
+    man = read_manifest(path)          # featuretex's own reader is the contract (docs/contracts.md)
     assert man.unit == "centimeter" and [v.name for v in man.views] == ["v0", "v1", "v2"]
     assert [v.holdout for v in man.views] == [False, True, False]
     cam = man.cameras["cam0"]

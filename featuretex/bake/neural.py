@@ -39,7 +39,7 @@ from featuretex.settings import check_settings
 
 MAD_TO_SIGMA = 1.4826    # sigma of Gaussian noise = 1.4826 x median absolute deviation (Hampel 1974)
 CAUCHY_C = 2.3849        # Cauchy tuning constant for 95 % efficiency on Gaussian noise (Holland &
-                         # Welsch 1977; value recalled from memory)
+                         # Welsch 1977): (E psi')^2 / E psi^2 = 0.95 under N(0, 1), psi(r) = r / (1 + (r/c)^2)
 
 
 @dataclass

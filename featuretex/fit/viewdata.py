@@ -6,7 +6,7 @@ float32 linear values the photo decodes to) and the loss / score masks (1 byte/p
 Geometry (uv, footprint, coverage, view direction and normal) is interpolated per crop or band
 from the G-buffer, which stays on disk (read per window, see GBuffer.window), and the mesh, unless
 the fit's memory budget lets a view keep it precomputed (GeometryCache: 61 bytes per pixel of the
-view's object bounding box; same values, a crop is then a slice instead of ~3 ms of arithmetic).
+view's object bounding box; same values, a crop is then a slice instead of arithmetic).
 """
 
 from __future__ import annotations

@@ -35,9 +35,8 @@ def bfloat16_in_hardware() -> bool:
 def resolve_precision(name: str) -> str:
     """fit.precision -> the screen decoder's convolution precision, "float32" or "bfloat16".
 
-    "auto" takes bfloat16 where the hardware has it: measured on the demo batch (4 x 23 x 128^2,
-    2 threads, AMX CPU) decoder forward + backward 8.6 ms vs 27 ms in float32, held-out figures
-    within noise. Weights, gradients, the texture and the loss stay float32 (autocast)."""
+    "auto" takes bfloat16 where the hardware has it (AMX): the decoder's convolutions run faster
+    with held-out figures within noise (benchmarks/fit.py measures both side by side). Weights, gradients, the texture and the loss stay float32 (autocast)."""
     if name not in PRECISIONS:
         raise InputError(f"config: fit.precision must be one of {', '.join(PRECISIONS)}; got {name!r}")
     if name == "auto":
@@ -81,8 +80,7 @@ class ScreenDecoder(nn.Module):
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         """(B, in, h, w) -> (B, 3, h, w) float32, computed on channels-last memory: torch's CPU
-        convolutions are ~2x faster there (forward + backward at (4, 23, 128, 128), 2 threads: 23 vs
-        48 ms). The fit's inputs already come in that layout, so this is a no-op on its hot path."""
+        convolutions are faster in that layout. The fit's inputs already come in that layout, so this is a no-op on its hot path."""
         x = x.contiguous(memory_format=torch.channels_last)
         with torch.autocast("cpu", dtype=torch.bfloat16, enabled=self.bfloat16):
             y = self.out(self.body(x))

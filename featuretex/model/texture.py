@@ -8,10 +8,9 @@ pixels (lambda <= 0) read four texels of level 0 (bilinear).
 
 Two implementations of the same filter: `mip_taps` + `sample_taps` build explicit tap tables and
 gather with `embedding_bag` (plain torch; the reference the tests check), and `sample_layer`,
-which the model uses, runs compiled per-pixel kernels (featuretex.model.mipkernel), ~3x faster
-forward + backward on the demo. Both beat `grid_sample`, whose CPU backward was ~3.6x slower than
-embedding_bag's for 16-channel textures (measured: 54 ms vs 196 ms for 65k pixels) and which
-needs pyramid padding. Texel coordinates follow the convention of featuretex.scene.mesh: texel
+which the model uses, runs compiled per-pixel kernels (featuretex.model.mipkernel), faster
+forward + backward. Neither uses `grid_sample`: its CPU backward is slower than embedding_bag's
+for many-channel textures, and it needs pyramid padding. Texel coordinates follow the convention of featuretex.scene.mesh: texel
 (i, j) has its centre at u = (j + 0.5) / T, v = 1 - (i + 0.5) / T; lookups are clamped to the edge.
 """
 

@@ -1,6 +1,6 @@
 """Camera intrinsics: pinhole and Brown–Conrady (OpenCV coefficient order k1, k2, p1, p2, k3).
 
-Conventions (DESIGN §2): camera axes +x right, +y down, +z forward; pixel (0, 0) is the
+Conventions (docs/contracts.md, section 5): camera axes +x right, +y down, +z forward; pixel (0, 0) is the
 centre of the top-left pixel, so pixel centres sit at integer coordinates.
 """
 

@@ -1,4 +1,5 @@
-"""Read and validate `scene.yaml` (DESIGN §2). Every violation raises InputError naming file, view, field."""
+"""Read and validate `scene.yaml` (the format: docs/contracts.md, section 1). Every violation raises
+InputError naming file, view, field."""
 
 from __future__ import annotations
 
@@ -68,8 +69,7 @@ class View:
 
     def to_camera(self, pts_world: np.ndarray) -> np.ndarray:
         """(N, 3) world points -> (N, 3) camera-space points."""
-        # einsum, not @: this memory-bound product was 5-7x slower through OpenBLAS's threads on a
-        # busy 2-core machine (benchmarks/gbuffer.py)
+        # einsum, not @: OpenBLAS's threads slow this memory-bound product down on a busy machine
         return np.einsum("nk,jk->nj", np.asarray(pts_world, dtype=np.float64), self.R) + self.t
 
 
@@ -247,7 +247,7 @@ def _focal_px(d: dict, w: int, file: str, where: str) -> tuple[float, float]:
     mm = _number(d["focal_mm"], file, view=None, fld=f"{where}.focal_mm", positive=True)
     sensor = _number(d["sensor_width_mm"], file, view=None, fld=f"{where}.sensor_width_mm", positive=True)
     f = mm * w / sensor           # pixels per mm across the sensor, times the focal length in mm
-    # sensor widths recalled from memory: full frame 36 mm, APS-C about 23.5 mm
+    # typical sensor widths (common practice): full frame 36 mm (the 135 film frame), APS-C about 23.5 mm
     _plausible_focal(f, w, file, f"{where}.focal_mm/sensor_width_mm", f"focal_mm {mm:g} on a {sensor:g} mm sensor",
                      "sensor_width_mm is the sensor's width in millimetres (36 for full frame, about 23.5 "
                      "for APS-C)")
