@@ -1,6 +1,9 @@
 """The whole run, stage by stage in data-flow order; each stage resumes or skips when it can.
 
     scene -> working photos -> G-buffers -> baseline bake -> fit -> bake -> export -> diagnose -> score -> report
+
+Every stage takes the run's `RunContext` and the key of its inputs, and records that key, its
+seconds and the files it declares through the stage book (`featuretex/stages.py`).
 """
 
 from __future__ import annotations
@@ -13,27 +16,29 @@ from pathlib import Path
 
 import numpy as np
 
-from featuretex import plugins
 from featuretex.atomic import atomic_path, remove_partials, write_json
 from featuretex.bake.baseline import bake_baseline
 from featuretex.bake.neural import bake_model, score_bake
 from featuretex.config import FeaturetexConfig
 from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.outputs import write_outputs
+from featuretex.export.base import declared_outputs, load_exporters
 from featuretex.export.gltf import gltf_from_scene
 from featuretex.export.png import write_texture_png
 from featuretex.fit.checkpoint import result_knobs
 from featuretex.fit.config import check_fit_config
 from featuretex.fit.loop import fit_scene
+from featuretex.fit.outputs import FitResult
 from featuretex.fit.render import render_view
 from featuretex.inferred import inferred_items
-from featuretex.raster.gbuffer import GBuffer
-from featuretex.raster.stage import build_gbuffers
-from featuretex.raster.uvspace import TexelBuffer, rasterise_uv
+from featuretex.raster.stage import build_gbuffers, gbuffer_files
+from featuretex.raster.uvspace import rasterise_uv
 from featuretex.render import render_texture
+from featuretex.run import RunContext
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene, load_scene
 from featuretex.scene.locate import resolve_scene_path
+from featuretex.scene.manifest import view_file_stem
 from featuretex.score import score_method
 from featuretex.stages import StageBook, key_of
 from featuretex.threads import job_threads, use_threads
@@ -42,6 +47,7 @@ from featuretex.working import WorkingPlan, plan_working, working_scene
 
 log = logging.getLogger("featuretex")
 HELDOUT_DIR = "heldout"
+FIT_FILES = ("model.pt", "history.json", "corrections.npz")
 
 
 def _save_npz(path: Path, **arrays: np.ndarray) -> None:
@@ -49,12 +55,12 @@ def _save_npz(path: Path, **arrays: np.ndarray) -> None:
         np.savez_compressed(tmp, **arrays)
 
 
-def stage_working(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook) -> tuple[Scene, WorkingPlan]:
+def stage_working(ctx: RunContext) -> WorkingPlan:
     """Texture size and per-view working windows (decided once, kept in stages/working.json), then
-    the scene with its photos reduced into cache/photos/ (files already there are reused)."""
-    t0 = time.perf_counter()
-    record = out / "stages" / "working.json"
-    tex = cfg.texture
+    the scene with its photos reduced into cache/photos/ (files already there are reused); the
+    context's scene becomes that working scene."""
+    cfg, scene, tex = ctx.cfg, ctx.scene, ctx.cfg.texture
+    record = ctx.stage_file("working.json")
 
     def compute() -> WorkingPlan:
         plan = plan_working(scene, cfg.photos, tex.size, tex.min_size, tex.max_size, cfg.raster.backend,
@@ -63,35 +69,39 @@ def stage_working(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBoo
         return plan
 
     key = key_of(scene.content_hash, cfg.photos, tex.size, tex.min_size, tex.max_size, cfg.raster.backend)
-    plan = book.run("working", key, [record], compute, lambda: WorkingPlan.from_json(json.loads(record.read_text())))
-    working, written = working_scene(scene, plan, out / "cache" / "photos", quiet=cfg.quiet)
-    if written == 0 and "photos" in book.records:
-        book.timings["photos"] = book.records["photos"]["seconds"]
-    else:
-        book.timings["photos"] = round(time.perf_counter() - t0, 3)
-        book.records["photos"] = {"key": key, "seconds": book.timings["photos"]}
-    return working, plan
+    plan = ctx.book.run("working", key, [record], compute,
+                        lambda: WorkingPlan.from_json(json.loads(record.read_text())))
+
+    def photos() -> tuple[Scene, bool]:
+        working, written = working_scene(scene, plan, ctx.out / "cache" / "photos", quiet=cfg.quiet)
+        return working, written > 0
+
+    ctx.scene = ctx.book.run_cached("photos", key, photos, _photo_files)
+    return plan
 
 
-def stage_gbuffers(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook, scene_key: str
-                   ) -> dict[str, GBuffer]:
+def _photo_files(scene: Scene) -> list[Path]:
+    return [p for v in scene.views for p in (v.image, v.mask) if p is not None]
+
+
+def stage_gbuffers(ctx: RunContext, key: str) -> None:
     """Cached on disk by mesh + camera content: cheap on a re-run, whatever else changed."""
-    t0 = time.perf_counter()
-    gbuffers, rendered = build_gbuffers(scene, out / "cache" / "gbuffer", cfg.raster.backend, quiet=cfg.quiet)
-    if rendered == 0 and "gbuffer" in book.records:
-        book.timings["gbuffer"] = book.records["gbuffer"]["seconds"]
-    else:
-        book.timings["gbuffer"] = round(time.perf_counter() - t0, 3)
-        book.records["gbuffer"] = {"key": scene_key, "seconds": book.timings["gbuffer"]}
-    return gbuffers
-
-
-def stage_baseline(scene: Scene, gbuffers, texels: TexelBuffer, cfg: FeaturetexConfig, out: Path,
-                   book: StageBook, key: str) -> tuple[np.ndarray, np.ndarray]:
-    npz = out / "stages" / "baseline.npz"
+    cache, backend = ctx.out / "cache" / "gbuffer", ctx.cfg.raster.backend
 
     def compute():
-        b = bake_baseline(scene, gbuffers, texels, dataclasses.replace(cfg.baseline, gutter=cfg.texture.gutter))
+        gbuffers, rendered = build_gbuffers(ctx.scene, cache, backend, quiet=ctx.cfg.quiet)
+        return gbuffers, rendered > 0
+
+    ctx.gbuffers = ctx.book.run_cached("gbuffer", key, compute, lambda _: gbuffer_files(ctx.scene, cache, backend))
+
+
+def stage_baseline(ctx: RunContext, key: str) -> tuple[np.ndarray, np.ndarray]:
+    cfg, out = ctx.cfg, ctx.out
+    npz = ctx.stage_file("baseline.npz")
+
+    def compute():
+        b = bake_baseline(ctx.scene, ctx.gbuffers, ctx.texels,
+                          dataclasses.replace(cfg.baseline, gutter=cfg.texture.gutter))
         write_texture_png(out / "baseline_texture.png", linear_to_srgb(b.texture_lin))
         _save_npz(npz, texture_lin=b.texture_lin, seen=b.seen)
         return b.texture_lin, b.seen
@@ -100,21 +110,37 @@ def stage_baseline(scene: Scene, gbuffers, texels: TexelBuffer, cfg: FeaturetexC
         z = np.load(npz)
         return z["texture_lin"], z["seen"]
 
-    return book.run("baseline", key, [npz, out / "baseline_texture.png"], compute, load)
+    return ctx.book.run("baseline", key, [npz, out / "baseline_texture.png"], compute, load)
 
 
-def stage_bake(scene: Scene, gbuffers, texels: TexelBuffer, model, cfg: FeaturetexConfig, out: Path,
-               book: StageBook, key: str) -> np.ndarray:
-    npz = out / "stages" / "bake.npz"
-    png = out / "texture.png"
+def stage_fit(ctx: RunContext, key: str, base_tex: np.ndarray, base_seen: np.ndarray) -> FitResult:
+    """The fit resumes from its checkpoint, or loads fit/model.pt when it already finished; its time
+    is the fit's own (earlier sessions of a resumed fit included)."""
+    cfg = ctx.cfg
+
+    def compute() -> tuple[FitResult, bool]:
+        fit = fit_scene(ctx.scene, ctx.gbuffers, base_tex, base_seen, cfg.fit, ctx.out, seed=cfg.seed,
+                        quiet=cfg.quiet, config_hash=key)
+        return fit, not fit.loaded
+
+    t0 = time.perf_counter()
+    return ctx.book.run_cached("fit", key, compute, lambda _: [ctx.out / "fit" / f for f in FIT_FILES],
+                               seconds=lambda fit: float(fit.timings.get("fit_s", time.perf_counter() - t0)))
+
+
+def stage_bake(ctx: RunContext, key: str, model) -> np.ndarray:
+    cfg = ctx.cfg
+    npz = ctx.stage_file("bake.npz")
+    png = ctx.out / "texture.png"
 
     def compute():
-        r = bake_model(scene, gbuffers, texels, model, dataclasses.replace(cfg.bake, gutter=cfg.texture.gutter))
+        r = bake_model(ctx.scene, ctx.gbuffers, ctx.texels, model,
+                       dataclasses.replace(cfg.bake, gutter=cfg.texture.gutter))
         write_texture_png(png, linear_to_srgb(r.texture_lin), bits=cfg.texture.bits)
         _save_npz(npz, texture_lin=r.texture_lin, seen=r.seen)
         return r.texture_lin
 
-    return book.run("bake", key, [npz, png], compute, lambda: np.load(npz)["texture_lin"])
+    return ctx.book.run("bake", key, [npz, png], compute, lambda: np.load(npz)["texture_lin"])
 
 
 def output_frame(scene: Scene) -> np.ndarray:
@@ -122,30 +148,32 @@ def output_frame(scene: Scene) -> np.ndarray:
     return gltf_from_scene(scene.up.vector, scene.manifest.unit_m)
 
 
-def stage_export(scene: Scene, cfg: FeaturetexConfig, out: Path, book: StageBook, key: str) -> list[Path]:
-    exporters = [plugins.load("exporters", name)() for name in cfg.export.formats]
-    files = [out / "model.glb"] if "glb" in cfg.export.formats else []
-    frame = output_frame(scene)
+def stage_export(ctx: RunContext, key: str) -> list[Path]:
+    """Every configured exporter; the stage is done when every file they declare exists."""
+    out, cfg = ctx.out, ctx.cfg
+    exporters = load_exporters(cfg.export.formats)
+    files = declared_outputs(exporters, out, out / "texture.png")
+    frame = output_frame(ctx.scene)
 
     def compute():
         written: list[Path] = []
         for ex in exporters:
-            written += ex.export(out, scene.mesh, out / "texture.png", unlit=cfg.export.unlit,
+            written += ex.export(out, ctx.scene.mesh, out / "texture.png", unlit=cfg.export.unlit,
                                  gltf_from_scene=frame)
         return written
 
-    return book.run("export", key, files, compute, lambda: files)
+    return ctx.book.run("export", key, files, compute, lambda: files)
 
 
-def stage_diagnose(scene: Scene, gbuffers, texels: TexelBuffer, texture_lin: np.ndarray, fit, cfg: FeaturetexConfig,
-                   out: Path, book: StageBook, key: str) -> dict:
-    record = out / "stages" / "diagnosis.json"
-    grid = out / "stages" / "diagnosis_grid.npz"     # the working-grid fields the touch-up starts from
+def stage_diagnose(ctx: RunContext, key: str, texture_lin: np.ndarray, fit: FitResult) -> dict:
+    out = ctx.out
+    record = ctx.stage_file("diagnosis.json")
+    grid = ctx.stage_file("diagnosis_grid.npz")     # the working-grid fields the touch-up starts from
 
     def compute():
-        dg = diagnose(scene, gbuffers, texels, texture_lin, cfg.diagnose, corrections=fit.corrections,
-                      history=fit.history)
-        write_outputs(out, dg, scene, texels)
+        dg = diagnose(ctx.scene, ctx.gbuffers, ctx.texels, texture_lin, ctx.cfg.diagnose,
+                      corrections=fit.corrections, history=fit.history)
+        write_outputs(out, dg, ctx.scene, ctx.texels)
         _save_npz(grid, **grid_fields(dg.work))
         fields = dg.summary_fields()
         fields["figures"] = _jsonable(dg.figures)
@@ -153,7 +181,31 @@ def stage_diagnose(scene: Scene, gbuffers, texels: TexelBuffer, texture_lin: np.
         return fields
 
     artefacts = [record, grid, out / "error_map.png", out / "error_map.npz", out / "diagnosis.ply"]
-    return book.run("diagnose", key, artefacts, compute, lambda: json.loads(record.read_text()))
+    return ctx.book.run("diagnose", key, artefacts, compute, lambda: json.loads(record.read_text()))
+
+
+def stage_score(ctx: RunContext, key: str, base_tex: np.ndarray, model, baked_tex: np.ndarray) -> dict:
+    """Held-out figures of the three methods (kept in stages/score.json); renders go to
+    `out/heldout/` for the report and are the stage's declared files."""
+    record = ctx.stage_file("score.json")
+
+    def compute() -> dict:
+        heldout = score_all(ctx.scene, ctx.gbuffers, base_tex, model, baked_tex, ctx.out, ctx.cfg.seed)
+        write_json(record, heldout)
+        return heldout
+
+    return ctx.book.run("score", key, [record], compute, lambda: json.loads(record.read_text()),
+                        produced=lambda heldout: heldout_files(ctx.out, heldout))
+
+
+def heldout_files(out: Path, heldout: dict) -> list[Path]:
+    """The renders score_method wrote: per method, each scored view's render and its photo."""
+    files = []
+    for method in ("baseline", "neural", "baked"):
+        for view in heldout[method].get("per_view", {}):
+            stem = view_file_stem(view)
+            files += [out / HELDOUT_DIR / f"{stem}_{method}.png", out / HELDOUT_DIR / f"{stem}_photo.png"]
+    return list(dict.fromkeys(files))
 
 
 def _jsonable(obj):
@@ -180,51 +232,37 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
     out.mkdir(parents=True, exist_ok=True)
     for leftover in remove_partials(out):  # a killed run's temporary files; never a finished output
         log.info("removed %s, left by an interrupted write", leftover)
-    book = StageBook(out)
-    scene, plan = stage_working(scene, cfg, out, book)
+    ctx = RunContext(scene=scene, cfg=cfg, out=out, book=StageBook(out))
+    book = ctx.book
+    plan = stage_working(ctx)
     size = plan.texture_size
-    scene_key = key_of(scene.content_hash)
+    scene_key = key_of(ctx.scene.content_hash)
 
-    gbuffers = stage_gbuffers(scene, cfg, out, book, scene_key)
-    texels = rasterise_uv(scene.mesh, size)
+    stage_gbuffers(ctx, scene_key)
+    ctx.texels = rasterise_uv(ctx.scene.mesh, size)
 
     base_key = key_of(scene_key, size, cfg.baseline, cfg.texture.gutter)
-    base_tex, base_seen = stage_baseline(scene, gbuffers, texels, cfg, out, book, base_key)
-
-    # the fit resumes from its checkpoint, or loads fit/model.pt when it already finished
+    base_tex, base_seen = stage_baseline(ctx, base_key)
     fit_key = key_of(base_key, result_knobs(cfg.fit), cfg.seed)
-    t0 = time.perf_counter()
-    fit = fit_scene(scene, gbuffers, base_tex, base_seen, cfg.fit, out, seed=cfg.seed, quiet=cfg.quiet,
-                    config_hash=fit_key)
-    if fit.loaded and "fit" in book.records:
-        book.timings["fit"] = book.records["fit"]["seconds"]
-    else:
-        book.timings["fit"] = round(float(fit.timings.get("fit_s", time.perf_counter() - t0)), 3)
-        book.records["fit"] = {"key": fit_key, "seconds": book.timings["fit"]}
-        write_json(book.path, book.records)
-
+    fit = stage_fit(ctx, fit_key, base_tex, base_seen)
     bake_key = key_of(fit_key, cfg.bake, cfg.texture)
-    baked_tex = stage_bake(scene, gbuffers, texels, fit.model, cfg, out, book, bake_key)
-    stage_export(scene, cfg, out, book, key_of(bake_key, cfg.export, output_frame(scene).tolist()))
-    diag = stage_diagnose(scene, gbuffers, texels, baked_tex, fit, cfg, out, book,
-                          key_of(bake_key, cfg.diagnose))
-
-    t0 = time.perf_counter()
-    heldout = score_all(scene, gbuffers, base_tex, fit.model, baked_tex, out, cfg.seed)
-    book.timings["score"] = round(time.perf_counter() - t0, 3)
+    baked_tex = stage_bake(ctx, bake_key, fit.model)
+    stage_export(ctx, key_of(bake_key, cfg.export, output_frame(ctx.scene).tolist()))
+    diag = stage_diagnose(ctx, key_of(bake_key, cfg.diagnose), baked_tex, fit)
+    heldout = stage_score(ctx, key_of(bake_key, cfg.seed), base_tex, fit.model, baked_tex)
     if cfg.touchup:
         from featuretex.touchup.stage import stage_touchup
 
-        with np.load(out / "stages" / "diagnosis_grid.npz") as z:
+        with np.load(ctx.stage_file("diagnosis_grid.npz")) as z:
             grid = {k: z[k] for k in z.files}
-        tu = stage_touchup(scene, cfg, out, book, key_of(bake_key, cfg.diagnose, cfg.touchup_settings), size,
-                           gbuffers, fit, baked_tex, diag, grid, output_frame(scene))
+        tu = stage_touchup(ctx, key_of(bake_key, cfg.diagnose, cfg.touchup_settings), fit, baked_tex, diag, grid,
+                           output_frame(ctx.scene))
         heldout["touchup"], heldout["touchup_report"] = tu["heldout"], tu["report"]
         book.timings["touchup"] = tu["seconds"]
 
-    summary = build_summary(scene, cfg, plan, heldout, diag, fit, book, time.perf_counter() - t_start)
-    summary["inferred"] = inferred_items(scene, plan.texture_size, bool(cfg.texture.size), summary)
-    summary["warnings"] = list(scene.warnings)
+    summary = build_summary(ctx.scene, cfg, plan, heldout, diag, fit, book, time.perf_counter() - t_start)
+    summary["inferred"] = inferred_items(ctx.scene, plan.texture_size, bool(cfg.texture.size), summary)
+    summary["warnings"] = list(ctx.scene.warnings)
     write_json(out / "summary.json", summary)
     if cfg.report:
         from featuretex.report.html import write_report
@@ -234,8 +272,6 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
         summary["timings_s"]["report"] = round(time.perf_counter() - t0, 3)
         write_json(out / "summary.json", summary)
     return summary
-
-
 def score_all(scene: Scene, gbuffers, base_tex: np.ndarray, model, baked_tex: np.ndarray, out: Path,
               seed: int) -> dict:
     """Held-out figures of the three methods; renders go to `out/heldout/` for the report."""

@@ -1,6 +1,9 @@
 """Stage bookkeeping: a stage whose inputs are unchanged and whose artefacts exist is skipped.
 
-`<run dir>/stages.json` records, per stage, the key of its inputs and the seconds it took.
+`<run dir>/stages.json` records, per stage, the key of its inputs, the seconds it took and the
+files it declares (relative to the run folder). Every stage records through `StageBook.record`:
+`run` for a stage that is skipped when done, `run_cached` for a stage with a cache of its own
+(working photos, G-buffers, the fit) that always runs and says whether it did new work.
 
 What a run folder holds is a cache of work done: a record or an artefact that does not read back
 (damaged disk, a file truncated or replaced by hand) is not an error. It is named in one log line
@@ -47,7 +50,8 @@ def key_of(*parts: Any) -> str:
 
 class StageBook:
     def __init__(self, run_dir: Path):
-        self.path = run_dir / "stages.json"
+        self.run_dir = Path(run_dir)
+        self.path = self.run_dir / "stages.json"
         self.records: dict[str, dict] = self._read() if self.path.is_file() else {}
         self.timings: dict[str, float] = {}
 
@@ -62,12 +66,28 @@ class StageBook:
         return records
 
     def done(self, name: str, key: str, artefacts: list[Path]) -> bool:
+        """The stage ran with this key and `artefacts` and the files it recorded all exist."""
         rec = self.records.get(name)
-        return bool(rec and rec.get("key") == key and all(p.exists() for p in artefacts))
+        if not (rec and rec.get("key") == key):
+            return False
+        recorded = [self.run_dir / p for p in rec.get("artefacts", [])]
+        return all(p.exists() for p in [*artefacts, *recorded])
+
+    def record(self, name: str, key: str, artefacts: list[Path], seconds: float) -> None:
+        """A stage finished: its key, seconds and declared files go to stages.json at once."""
+        self.timings[name] = round(float(seconds), 3)
+        self.records[name] = {"key": key, "seconds": self.timings[name],
+                              "artefacts": [self._relative(p) for p in artefacts]}
+        write_json(self.path, self.records)
+
+    def _relative(self, path: Path) -> str:
+        path = Path(path)
+        return str(path.relative_to(self.run_dir)) if path.is_relative_to(self.run_dir) else str(path)
 
     def run(self, name: str, key: str, artefacts: list[Path], compute: Callable[[], R],
-            load: Callable[[], R]) -> R:
-        """Run `compute` (which writes the artefacts) unless done; then or else return `load()`-ed value."""
+            load: Callable[[], R], *, produced: Callable[[R], list[Path]] | None = None) -> R:
+        """Run `compute` (which writes the artefacts) unless done; then or else return `load()`-ed value.
+        `produced(result)` names further files only known once computed (recorded, then checked too)."""
         if self.done(name, key, artefacts):
             try:
                 value = load()
@@ -77,7 +97,21 @@ class StageBook:
                 discard(f"the {name} stage's result", artefacts[0] if artefacts else self.path, e)
         t0 = time.perf_counter()
         result = compute()
-        self.timings[name] = round(time.perf_counter() - t0, 3)
-        self.records[name] = {"key": key, "seconds": self.timings[name]}
-        write_json(self.path, self.records)
+        extra = produced(result) if produced is not None else []
+        self.record(name, key, [*artefacts, *extra], time.perf_counter() - t0)
         return result
+
+    def run_cached(self, name: str, key: str, compute: Callable[[], tuple[R, bool]],
+                   artefacts: Callable[[R], list[Path]], *, seconds: Callable[[R], float] | None = None) -> R:
+        """A stage whose own cache decides what to redo: `compute` always runs and returns (value,
+        whether it did new work). Without new work on a recorded, unchanged key the recorded seconds
+        stand; else the stage is recorded with `artefacts(value)` and `seconds(value)` (default: the
+        wall time of `compute`)."""
+        t0 = time.perf_counter()
+        value, fresh = compute()
+        rec = self.records.get(name)
+        if not fresh and rec is not None and rec.get("key") == key:
+            self.timings[name] = float(rec.get("seconds", 0.0))
+        else:
+            self.record(name, key, artefacts(value), seconds(value) if seconds else time.perf_counter() - t0)
+        return value

@@ -226,7 +226,9 @@ def test_exporter_plugins_write_into_run_dir(tmp_path, sphere, checker):
     for name in ("glb", "obj"):
         exporter = plugins.load("exporters", name)()
         assert isinstance(exporter, Exporter) and exporter.name == name
-        written += exporter.export(out, sphere, tex, unlit=True, gltf_from_scene=np.eye(4))
+        files = exporter.export(out, sphere, tex, unlit=True, gltf_from_scene=np.eye(4))
+        assert files == exporter.outputs(out, tex)          # it declares exactly what it writes
+        written += files
     names = sorted(p.name for p in written)
     assert names == ["model.glb", "model.mtl", "model.obj", "texture.png"]   # texture copied beside the MTL
     assert (out / "texture.png").read_bytes() == before and tex.read_bytes() == before

@@ -151,6 +151,9 @@ class GlbExporter:
         return [write_glb(Path(out_dir) / "model.glb", mesh, Path(texture_png).read_bytes(),
                           gltf_from_scene=gltf_from_scene, unlit=unlit)]
 
+    def outputs(self, out_dir: Path, texture_png: Path) -> list[Path]:
+        return [Path(out_dir) / "model.glb"]
+
 
 def _accessor_array(doc: gl.GLTF2, blob: bytes, index: int) -> np.ndarray:
     """The data of accessor `index` exactly as stored: (count, k) or (count,)."""

@@ -72,3 +72,8 @@ class ObjExporter:
                 shutil.copyfile(texture_png, tmp)
             written.append(beside)
         return written
+
+    def outputs(self, out_dir: Path, texture_png: Path) -> list[Path]:
+        """model.obj, model.mtl and the texture beside them (a copy unless it is already there)."""
+        out_dir = Path(out_dir)
+        return [out_dir / "model.obj", out_dir / "model.mtl", out_dir / Path(texture_png).name]

@@ -36,9 +36,14 @@ def _read(path: Path) -> np.ndarray | None:
         return None
 
 
+def cache_path(cache_dir: Path, backend: str, mesh: SceneMesh, view: View) -> Path:
+    """The cache file of one view's G-buffer."""
+    return Path(cache_dir) / f"{cache_key(backend, mesh, view)}.npy"
+
+
 def load_or_render(cache_dir: Path, backend, mesh: SceneMesh, view: View) -> tuple[GBuffer, bool]:
     """Return (G-buffer, was_cached). The buffer is a read-only memory map of the cache file."""
-    path = Path(cache_dir) / f"{cache_key(backend.name, mesh, view)}.npy"
+    path = cache_path(cache_dir, backend.name, mesh, view)
     arr = _read(path) if path.is_file() else None
     if arr is not None:
         return GBuffer(view=view.name, data=arr), True

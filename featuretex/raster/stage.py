@@ -6,7 +6,7 @@ from pathlib import Path
 
 from featuretex import plugins
 from featuretex.progress import progress_iter
-from featuretex.raster.cache import load_or_render
+from featuretex.raster.cache import cache_path, load_or_render
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.loaded import Scene
 
@@ -24,6 +24,11 @@ def build_gbuffers(scene: Scene, cache_dir: Path, backend: str = "embree", *, qu
         rendered += not cached
         out[view.name] = gb
     return out, rendered
+
+
+def gbuffer_files(scene: Scene, cache_dir: Path, backend: str = "embree") -> list[Path]:
+    """The cache files `build_gbuffers` reads or writes, one per view."""
+    return [cache_path(cache_dir, backend, scene.mesh, view) for view in scene.views]
 
 
 class _LazyBackend:

@@ -9,8 +9,8 @@ from pathlib import Path
 import numpy as np
 import trimesh
 
-from featuretex import plugins
 from featuretex.atomic import write_bytes
+from featuretex.export.base import declared_outputs, load_exporters
 from featuretex.export.png import write_texture_png
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.mesh import SceneMesh
@@ -44,7 +44,12 @@ def write_model(out_dir: Path, mesh: SceneMesh, texture_lin: np.ndarray, formats
     png = out_dir / "texture.png"
     write_texture_png(png, linear_to_srgb(texture_lin), bits=bits)
     written = [png]
-    for name in formats:
-        written += plugins.load("exporters", name)().export(out_dir, mesh, png, unlit=unlit,
-                                                            gltf_from_scene=gltf_from_scene)
+    for ex in load_exporters(formats):
+        written += ex.export(out_dir, mesh, png, unlit=unlit, gltf_from_scene=gltf_from_scene)
     return written
+
+
+def model_files(out_dir: Path, formats: list[str]) -> list[Path]:
+    """What `write_model` writes into `out_dir`: texture.png and every exporter's declared files."""
+    png = out_dir / "texture.png"
+    return [png] + [p for p in declared_outputs(load_exporters(formats), out_dir, png) if p != png]

@@ -28,16 +28,18 @@ from featuretex.atomic import atomic_path, write_json
 from featuretex.bake.neural import bake_model
 from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.grid import texel_areas
-from featuretex.fit.loop import FitResult, fit_scene
+from featuretex.fit.loop import fit_scene
+from featuretex.fit.outputs import FitResult
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
+from featuretex.run import RunContext
 from featuretex.scene.loaded import Scene
 from featuretex.scene.mesh import SceneMesh, smooth_normals
 from featuretex.stages import StageBook, key_of
 from featuretex.touchup import evidence as E
 from featuretex.touchup.config import TouchupConfig
 from featuretex.touchup.mesh import moved, welded
-from featuretex.touchup.outputs import write_model, write_offsets_ply
+from featuretex.touchup.outputs import model_files, write_model, write_offsets_ply
 from featuretex.touchup.solve import solve_offsets
 
 log = logging.getLogger("featuretex")
@@ -195,24 +197,24 @@ def cfg_out(folder: Path) -> Path:
     return folder.parent.parent
 
 
-def stage_touchup(scene: Scene, cfg, out: Path, book: StageBook, key: str, size: int, gbuffers: dict,
-                  fit: FitResult, baked_tex: np.ndarray, diag: dict, grid_fields: dict[str, np.ndarray],
-                  frame: np.ndarray) -> dict:
+def stage_touchup(ctx: RunContext, key: str, fit: FitResult, baked_tex: np.ndarray, diag: dict,
+                  grid_fields: dict[str, np.ndarray], frame: np.ndarray) -> dict:
     """Run the touch-up after the run's own diagnosis; write `touchup/` (frame: the run's (4, 4)
     scene -> glTF matrix) and score it on the held-out views. Returns {"heldout": scores like the
     other methods' (with per_view), "report": figures, "seconds": the touch-up's own time}."""
     from featuretex.score import score_method
     from featuretex.render import render_texture
 
+    scene, cfg, out, book, gbuffers = ctx.scene, ctx.cfg, ctx.out, ctx.book, ctx.gbuffers
+    assert ctx.texels is not None
+    size = ctx.texels.size
     start = RoundState(0, scene.mesh, np.zeros(len(scene.mesh.vertices)), baked_tex, grid_fields, diag, fit=fit,
                        gbuffers=gbuffers)
     rounds = run_rounds(scene, cfg, out, book, key, size, start)
     best = [r for r in rounds if r.kept][-1]
     final_scene = dataclasses.replace(scene, mesh=best.mesh)
     folder = out / DIR
-    files = [folder / "texture.png", folder / "offsets.ply"] + \
-        ([folder / "model.glb"] if "glb" in cfg.export.formats else []) + \
-        ([folder / "model.obj", folder / "model.mtl"] if "obj" in cfg.export.formats else [])
+    files = model_files(folder, list(cfg.export.formats)) + [folder / "offsets.ply"]
     half = diag["figures"]["sweep_half_range"]
 
     def export() -> list[Path]:
