@@ -22,19 +22,20 @@ from pathlib import Path
 os.environ.setdefault("PYOPENGL_PLATFORM", "egl")
 
 from featuretex.bake.baseline import bake_baseline  # noqa: E402
-from featuretex.bake.neural import BakeConfig, bake_model, score_bake  # noqa: E402
-from featuretex.bake.seams import seam_ratio  # noqa: E402
-from featuretex.bake.texel_size import auto_texture_size, median_pixel_footprint  # noqa: E402
+from featuretex.bake.neural import BakeConfig, bake_model  # noqa: E402
 from featuretex.demo import ensure_demo_scene  # noqa: E402
 from featuretex.fit.config import FitConfig  # noqa: E402
 from featuretex.fit.loop import fit_scene  # noqa: E402
-from featuretex.fit.render import render_view  # noqa: E402
+from featuretex.fit.render import render_texel_head, render_view, residual_renderer  # noqa: E402
 from featuretex.raster.stage import build_gbuffers  # noqa: E402
 from featuretex.raster.uvspace import rasterise_uv  # noqa: E402
-from featuretex.render import render_texture  # noqa: E402
 from featuretex.scene.loaded import load_scene  # noqa: E402
-from featuretex.score import score_mask, score_method  # noqa: E402
+from featuretex.scoring.heldout import score_bake, score_method  # noqa: E402
+from featuretex.scoring.render import render_texture  # noqa: E402
+from featuretex.scoring.seams import seam_ratio  # noqa: E402
 from featuretex.stages import key_of  # noqa: E402
+from featuretex.texels.size import auto_texture_size, median_pixel_footprint  # noqa: E402
+from featuretex.texels.visibility import usable_mask  # noqa: E402
 
 
 def _brief(s: dict) -> dict:
@@ -62,16 +63,17 @@ def main(argv: list[str] | None = None) -> int:
     model = fit.model.eval()
 
     held = list(scene.manifest.heldout)
-    masks = {v.name: score_mask(scene, v, gbuffers[v.name]) for v in held}
+    masks = {v.name: usable_mask(scene, v, gbuffers[v.name]) for v in held}
     base_r = {v.name: render_texture(gbuffers[v.name], scene.mesh, base.texture_lin) for v in held}
     neural_r = {v.name: render_view(model, scene, gbuffers[v.name], v) for v in held}
     s_base = score_method(scene, gbuffers, base_r, method="baseline")
     s_neural = score_method(scene, gbuffers, neural_r, method="neural")
 
     t0 = time.perf_counter()
-    baked = bake_model(scene, gbuffers, texels, model, BakeConfig())
+    head, residual_of = render_texel_head(model, texels.size), residual_renderer(model, scene, gbuffers)
+    baked = bake_model(scene, gbuffers, texels, head, residual_of, BakeConfig())
     bake_s = time.perf_counter() - t0
-    head_only = bake_model(scene, gbuffers, texels, model, BakeConfig(residual=False))
+    head_only = bake_model(scene, gbuffers, texels, head, residual_of, BakeConfig(residual=False))
     out = score_bake(scene, gbuffers, baked.texture_lin, s_neural)
     s_baked, seams = out["baked"], out["seams"]
     s_head = score_bake(scene, gbuffers, head_only.texture_lin, s_neural)["baked"]

@@ -17,7 +17,7 @@ in a child process and reports:
   the same subset run twice with the same texture size, once at working resolution (the default)
   and once with photos.scale=1; both baked textures are then rendered at the held-out views at the
   photos' full resolution (G-buffers by featuretex's Embree backend on the original cameras) and
-  scored against the original photos inside coverage ∩ mask (featuretex.metrics). loss_db = full
+  scored against the original photos inside coverage ∩ mask (featuretex.scoring.metrics). loss_db = full
   minus working, plain PSNR of the baked texture.
 * with --large, a second shoot of 100 views at 6000 x 4000 (skipped when the disk has less than
   20 GB free), end to end: wall time, peak RSS, bytes.
@@ -175,12 +175,12 @@ def score_full_resolution(scene_yaml: Path, held: list[str], textures: dict[str,
     the original photos inside coverage ∩ mask: {label: aggregated scores}."""
     from PIL import Image
 
-    from featuretex import metrics
     from featuretex.raster.embree import EmbreeRasteriser
     from featuretex.raster.gbuffer import GBuffer
-    from featuretex.render import render_texture
     from featuretex.scene.colour import srgb_to_linear
     from featuretex.scene.loaded import load_scene
+    from featuretex.scoring import metrics
+    from featuretex.scoring.render import render_texture
 
     scene = load_scene(scene_yaml)
     tex = {k: srgb_to_linear(np.asarray(Image.open(p).convert("RGB"), np.float32) / 255) for k, p in textures.items()}

@@ -30,12 +30,12 @@ REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
 from featuretex.bake.baseline import bake_baseline          # noqa: E402
-from featuretex.bake.texel_size import auto_texture_size, median_pixel_footprint    # noqa: E402
 from featuretex.diagnose import DiagnoseConfig, diagnose, write_outputs  # noqa: E402
 from featuretex.diagnose.alignment import load_corrections  # noqa: E402
 from featuretex.raster.stage import build_gbuffers          # noqa: E402
 from featuretex.raster.uvspace import TexelBuffer, rasterise_uv  # noqa: E402
 from featuretex.scene.loaded import load_scene              # noqa: E402
+from featuretex.texels.size import auto_texture_size, median_pixel_footprint    # noqa: E402
 
 THRESHOLD_M = 0.0015
 SCENE = REPO / "demo_assets" / "scene" / "scene.yaml"

@@ -35,9 +35,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 import numpy as np  # noqa: E402
 import torch  # noqa: E402
 
-from featuretex import metrics  # noqa: E402
 from featuretex.bake.baseline import bake_baseline  # noqa: E402
-from featuretex.bake.texel_size import auto_texture_size, median_pixel_footprint  # noqa: E402
 from featuretex.demo import ensure_demo_scene  # noqa: E402
 from featuretex.fit import FitConfig, render_view  # noqa: E402
 from featuretex.fit.flops import train_flops  # noqa: E402
@@ -45,8 +43,10 @@ from featuretex.fit.loop import fit_scene  # noqa: E402
 from featuretex.model.decoders import resolve_precision  # noqa: E402
 from featuretex.raster.stage import build_gbuffers  # noqa: E402
 from featuretex.raster.uvspace import rasterise_uv  # noqa: E402
-from featuretex.render import render_texture  # noqa: E402
 from featuretex.scene.loaded import load_scene  # noqa: E402
+from featuretex.scoring import metrics  # noqa: E402
+from featuretex.scoring.render import render_texture  # noqa: E402
+from featuretex.texels.size import auto_texture_size, median_pixel_footprint  # noqa: E402
 
 log = logging.getLogger("featuretex")
 

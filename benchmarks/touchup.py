@@ -95,13 +95,13 @@ def true_pose_psnr(scene, mesh, texture_png: Path) -> float:
     (Embree) from its true pose, inside G-buffer coverage and photo mask."""
     import dataclasses
 
-    from featuretex import metrics
     from PIL import Image
 
     from featuretex.raster.embree import EmbreeRasteriser
     from featuretex.raster.gbuffer import GBuffer
-    from featuretex.render import render_texture
     from featuretex.scene.colour import srgb_to_linear
+    from featuretex.scoring import metrics
+    from featuretex.scoring.render import render_texture
 
     poses = json.loads((REPO / "demo_assets" / "ground_truth" / "true_poses.json").read_text())["views"]
     tex = srgb_to_linear(np.asarray(Image.open(texture_png).convert("RGB"), np.float32) / 255.0)
@@ -123,8 +123,8 @@ def main() -> None:
     args = ap.parse_args()
     out = args.out or Path(tempfile.mkdtemp(prefix="touchup_bench_")) / "demo"
     s = run_demo(out, "touchup=true")
-    from featuretex.scene.loaded import load_scene
     from featuretex.demo import ensure_demo_scene
+    from featuretex.scene.loaded import load_scene
 
     scene = load_scene(ensure_demo_scene())
     fig = distances(out, scene.mesh, np.random.default_rng(0))

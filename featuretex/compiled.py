@@ -1,5 +1,5 @@
 """Settings shared by the compiled (numba) kernels: featuretex.model.mipkernel (texture sampling),
-featuretex.fit.photoloss (the training loss) and featuretex.metrics (alignment-tolerant PSNR).
+featuretex.fit.photoloss (the training loss) and featuretex.scoring.metrics (alignment-tolerant PSNR).
 Each of those modules imports this one before it defines a kernel.
 
 Threading layer "omp": numba's OpenMP pool loads libgomp by the same soname as torch's, so in one

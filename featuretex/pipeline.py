@@ -18,28 +18,28 @@ import numpy as np
 
 from featuretex.atomic import atomic_path, remove_partials, write_json
 from featuretex.bake.baseline import bake_baseline
-from featuretex.bake.neural import bake_model, score_bake
+from featuretex.bake.neural import bake_model
 from featuretex.config import FeaturetexConfig
 from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.outputs import write_outputs
 from featuretex.export.base import declared_outputs, load_exporters
 from featuretex.export.gltf import gltf_from_scene
-from featuretex.export.png import write_texture_png
 from featuretex.fit.checkpoint import result_knobs
 from featuretex.fit.config import check_fit_config
 from featuretex.fit.loop import fit_scene
 from featuretex.fit.outputs import FitResult
-from featuretex.fit.render import render_view
+from featuretex.fit.render import render_texel_head, render_view, residual_renderer
 from featuretex.inferred import inferred_items
+from featuretex.png import write_texture_png
 from featuretex.raster.stage import build_gbuffers, gbuffer_files
 from featuretex.raster.uvspace import rasterise_uv
-from featuretex.render import render_texture
 from featuretex.run import RunContext
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene, load_scene
 from featuretex.scene.locate import resolve_scene_path
 from featuretex.scene.manifest import view_file_stem
-from featuretex.score import score_method
+from featuretex.scoring.heldout import score_bake, score_method
+from featuretex.scoring.render import render_texture
 from featuretex.stages import StageBook, key_of
 from featuretex.threads import job_threads, use_threads
 from featuretex.touchup.evidence import grid_fields
@@ -119,7 +119,8 @@ def stage_fit(ctx: RunContext, key: str, base_tex: np.ndarray, base_seen: np.nda
     cfg = ctx.cfg
 
     def compute() -> tuple[FitResult, bool]:
-        fit = fit_scene(ctx.scene, ctx.gbuffers, base_tex, base_seen, cfg.fit, ctx.out, seed=cfg.seed,
+        fit_cfg = dataclasses.replace(cfg.fit, gutter=cfg.texture.gutter)
+        fit = fit_scene(ctx.scene, ctx.gbuffers, base_tex, base_seen, fit_cfg, ctx.out, seed=cfg.seed,
                         quiet=cfg.quiet, config_hash=key)
         return fit, not fit.loaded
 
@@ -134,7 +135,8 @@ def stage_bake(ctx: RunContext, key: str, model) -> np.ndarray:
     png = ctx.out / "texture.png"
 
     def compute():
-        r = bake_model(ctx.scene, ctx.gbuffers, ctx.texels, model,
+        r = bake_model(ctx.scene, ctx.gbuffers, ctx.texels, render_texel_head(model, ctx.texels.size),
+                       residual_renderer(model, ctx.scene, ctx.gbuffers),
                        dataclasses.replace(cfg.bake, gutter=cfg.texture.gutter))
         write_texture_png(png, linear_to_srgb(r.texture_lin), bits=cfg.texture.bits)
         _save_npz(npz, texture_lin=r.texture_lin, seen=r.seen)

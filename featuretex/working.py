@@ -38,8 +38,7 @@ import numpy as np
 
 from featuretex import plugins
 from featuretex.atomic import write_bytes
-from featuretex.bake.texel_size import auto_texture_size, depth_footprints, texel_edge
-from featuretex.export.png import encode_texture_png
+from featuretex.png import encode_texture_png
 from featuretex.progress import progress_iter
 from featuretex.scene.images import load_mask, load_photo_levels
 from featuretex.scene.loaded import Scene
@@ -48,6 +47,7 @@ from featuretex.scene.mesh import SceneMesh
 from featuretex.scene.resample import Window, reduce_levels, reduce_mask, reduced_size, working_camera
 from featuretex.settings import check_settings
 from featuretex.stages import key_of
+from featuretex.texels.size import auto_texture_size, depth_footprints, texel_edge
 from featuretex.working_config import PhotoConfig
 
 log = logging.getLogger("featuretex")

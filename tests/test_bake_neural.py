@@ -14,16 +14,20 @@ from scipy import ndimage
 from skimage.transform import downscale_local_mean
 
 import featuretex.model  # noqa: F401  (registers the built-in decoders)
-from featuretex import metrics
 from featuretex.bake.neural import (BakeConfig, ResidualSamples, bake_model, compose_texture, gather_samples,
-                                    robust_combine, score_bake, weighted_median)
+                                    robust_combine, weighted_median)
 from featuretex.errors import InputError
+from featuretex.fit.render import render_texel_head, residual_renderer
 from featuretex.model.corrections import ViewCorrections, grid_shape
 from featuretex.model.scene_model import SceneModel
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
 from featuretex.scene.colour import linear_to_srgb, srgb_to_linear
 from featuretex.scene.loaded import load_scene
+from featuretex.scoring import metrics
+from featuretex.scoring.heldout import score_bake
+from featuretex.scoring.render import render_texture
+from featuretex.texels.visibility import usable_mask
 
 from scenes import smooth_texture, sphere_scene
 
@@ -63,9 +67,15 @@ def make_model(tex_lin: np.ndarray, decoder: str = "texel", offset: float | None
     return m.eval()
 
 
+def bake(scene, gbuffers, texels, model: SceneModel, cfg: BakeConfig | None = None):
+    """The bake as the pipeline calls it: the model's head texture and its residual renderer."""
+    return bake_model(scene, gbuffers, texels, render_texel_head(model, texels.size),
+                      residual_renderer(model, scene, gbuffers), cfg)
+
+
 def test_bake_returns_head_exactly_on_seen_texels(sphere):
     scene, gbuffers, texels, truth = sphere
-    res = bake_model(scene, gbuffers, texels, make_model(truth))
+    res = bake(scene, gbuffers, texels, make_model(truth))
     assert res.seen.sum() > 0.5 * texels.valid.sum()
     # reference: the known texture the model's head was set to (identity head, zero residual)
     assert np.array_equal(res.texture_lin[res.seen], truth[res.seen])
@@ -89,7 +99,7 @@ def test_bake_returns_head_exactly_on_seen_texels(sphere):
 def test_bake_at_another_size_is_the_area_average(sphere):
     scene, gbuffers, _, truth = sphere
     texels = rasterise_uv(scene.mesh, T // 2)
-    res = bake_model(scene, gbuffers, texels, make_model(truth))
+    res = bake(scene, gbuffers, texels, make_model(truth))
     # reference: scikit-image's 2 x 2 block mean (the head texture at half size is mip level 1)
     ref = downscale_local_mean(truth, (2, 2, 1))
     assert np.allclose(res.texture_lin[res.seen], ref[res.seen], atol=1e-6)
@@ -100,7 +110,7 @@ def test_bake_recovers_constant_residual_without_view_exposure(sphere):
     base = 0.1 + 0.7 * truth                      # room for the offset in [0, 1]
     offset = 0.05
     model = make_model(base, "texel-screen", offset=offset, scene=scene, colour_gain=1.6)
-    res = bake_model(scene, gbuffers, texels, model)
+    res = bake(scene, gbuffers, texels, model)
     # reference: the analytic value head + offset (the decoder adds `offset` everywhere)
     assert res.seen.sum() > 0.5 * texels.valid.sum()
     assert np.allclose(res.texture_lin[res.seen], base[res.seen] + offset, atol=2e-6)
@@ -108,7 +118,7 @@ def test_bake_recovers_constant_residual_without_view_exposure(sphere):
     unseen = texels.valid & ~res.seen
     assert unseen.any() and np.allclose(res.texture_lin[unseen], base[unseen] + offset, atol=2e-6)
     # switching the residual off leaves the exact head
-    off = bake_model(scene, gbuffers, texels, model, BakeConfig(residual=False))
+    off = bake(scene, gbuffers, texels, model, BakeConfig(residual=False))
     assert np.array_equal(off.texture_lin[off.seen], base[off.seen])
 
 
@@ -171,7 +181,7 @@ def test_bad_robust_mode_is_an_input_error():
 
 def test_score_bake_gap_is_neural_minus_baked(sphere):
     scene, gbuffers, texels, truth = sphere
-    res = bake_model(scene, gbuffers, texels, make_model(truth))
+    res = bake(scene, gbuffers, texels, make_model(truth))
     blurred = ndimage.uniform_filter(res.texture_lin, size=(5, 5, 1))
     neural = score_bake(scene, gbuffers, res.texture_lin)["baked"]
     out = score_bake(scene, gbuffers, blurred, neural)
@@ -180,8 +190,5 @@ def test_score_bake_gap_is_neural_minus_baked(sphere):
 
 
 def _render_and_photo(scene, gbuffers, tex, view):
-    from featuretex.render import render_texture
-    from featuretex.score import score_mask
-
     gb = gbuffers[view.name]
-    return render_texture(gb, scene.mesh, tex), scene.photo(view), score_mask(scene, view, gb)
+    return render_texture(gb, scene.mesh, tex), scene.photo(view), usable_mask(scene, view, gb)

@@ -10,13 +10,13 @@ import trimesh
 from scipy import ndimage
 
 from featuretex import synth
-from featuretex.bake.gutter import fill_texture
-from featuretex.bake.seams import neighbour_pairs, seam_ratio
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv, texel_uv
-from featuretex.render import render_texture
 from featuretex.scene.camera import Camera
 from featuretex.scene.loaded import load_scene
+from featuretex.scoring.render import render_texture
+from featuretex.scoring.seams import neighbour_pairs, seam_ratio
+from featuretex.texels.gutter import fill_texture
 
 T = 256
 

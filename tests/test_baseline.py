@@ -4,13 +4,13 @@ the scene was rendered with by pyrender, an independent OpenGL renderer)."""
 import numpy as np
 import pytest
 
-from featuretex import metrics
 from featuretex.bake.baseline import bake_baseline
-from featuretex.bake.gutter import fill_texture
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import load_scene
+from featuretex.scoring import metrics
+from featuretex.texels.gutter import fill_texture
 
 from scenes import smooth_texture, sphere_scene
 

@@ -27,7 +27,7 @@ if len(sys.argv) > 1:
     tempfile.gettempdir = lambda: sys.argv[1]   # as if no temporary folder could be written either
 import numpy as np
 from featuretex import compiled
-from featuretex.metrics import tolerant_psnr
+from featuretex.scoring.metrics import tolerant_psnr
 a = np.random.default_rng(0).random((32, 32, 3))
 print(compiled.CACHE_DIR, tolerant_psnr(a, a, np.ones((32, 32), bool)))
 """

@@ -237,7 +237,7 @@ def test_demo_glb_stands_upright_at_22_cm(tmp_path):
     """The demo's model.glb as a glTF viewer places it (world space after node transforms, computed
     by trimesh's glTF loader): 22 cm along +Y, the jug's foot at the bottom."""
     from featuretex.export.gltf import gltf_from_scene, write_glb
-    from featuretex.export.png import encode_texture_png
+    from featuretex.png import encode_texture_png
     from featuretex.scene.up import scene_up
 
     man = read_manifest(ASSETS / "scene" / "scene.yaml")

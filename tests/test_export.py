@@ -20,7 +20,7 @@ from featuretex.export import Exporter
 from featuretex.export.gltf import build_glb, read_texcoords, write_glb
 from featuretex.export.obj import write_obj
 from featuretex.export.ply import write_vertex_colour_ply
-from featuretex.export.png import encode_texture_png, write_texture_png
+from featuretex.png import encode_texture_png, write_texture_png
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.mesh import SceneMesh, make_atlas, smooth_normals
 
@@ -300,7 +300,7 @@ def _compare(ours: np.ndarray, cov: np.ndarray, theirs: np.ndarray, pcov: np.nda
     ours: 4x MSAA blends samples at silhouettes and at colour edges (UV seams, checker edges)."""
     from scipy.ndimage import binary_erosion, maximum_filter, minimum_filter
 
-    from featuretex.metrics import psnr
+    from featuretex.scoring.metrics import psnr
 
     both = binary_erosion(cov & pcov, np.ones((3, 3), bool), border_value=0)
     flat = np.all(minimum_filter(ours, size=(3, 3, 1)) == maximum_filter(ours, size=(3, 3, 1)), axis=-1)

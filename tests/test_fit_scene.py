@@ -10,16 +10,17 @@ import numpy as np
 import pytest
 import torch
 
-from featuretex import metrics, synth
+from featuretex import synth
 from featuretex.bake.baseline import bake_baseline
 from featuretex.errors import InputError
 from featuretex.fit import FitConfig, fit_scene, render_texel_head, render_view
-from featuretex.model.lod import uv_footprint, uv_jacobian
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
-from featuretex.render import render_texture
 from featuretex.scene.camera import Camera
 from featuretex.scene.loaded import load_scene
+from featuretex.scoring import metrics
+from featuretex.scoring.render import render_texture
+from featuretex.texels.lod import uv_footprint, uv_jacobian
 
 from scenes import smooth_texture
 
@@ -82,7 +83,7 @@ def test_fit_from_a_flat_start_reaches_35_db_on_heldout_views(tiny, tmp_path):
 
 def test_head_render_equals_bilinear_lookup_of_baked_texture(tiny, tmp_path):
     """Exact bakeability: with the 'texel' decoder, a render is the baked RGB texture sampled
-    bilinearly (featuretex.render.render_texture, a numpy lookup independent of the fit code) at
+    bilinearly (featuretex.scoring.render.render_texture, a numpy lookup independent of the fit code) at
     every pixel that is not minified (there the mip filter of any engine applies). A 32 x 32
     texture on this sphere is magnified almost everywhere (not at the poles and silhouettes)."""
     scene, gbuffers, base = tiny

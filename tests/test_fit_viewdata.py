@@ -16,11 +16,11 @@ from featuretex import synth
 from featuretex.fit.sampler import Crop, assemble, warped_targets
 from featuretex.fit.viewdata import PHOTO_MARGIN, mesh_tables, prepare_view
 from featuretex.model.corrections import ViewCorrections, grid_shape
-from featuretex.model.lod import uv_footprint
 from featuretex.raster.gbuffer import _mapped_file
 from featuretex.raster.stage import build_gbuffers
 from featuretex.scene.camera import Camera
 from featuretex.scene.loaded import load_scene
+from featuretex.texels.lod import uv_footprint
 
 from scenes import smooth_texture
 

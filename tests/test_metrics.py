@@ -7,8 +7,8 @@ import pytest
 from scipy.ndimage import gaussian_filter
 from skimage.metrics import peak_signal_noise_ratio, structural_similarity
 
-from featuretex import metrics
 from featuretex.scene.colour import linear_to_srgb, srgb_to_linear
+from featuretex.scoring import metrics
 
 
 def _texture(rng: np.random.Generator, h: int, w: int, pad: int = 0) -> np.ndarray:

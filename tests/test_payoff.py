@@ -19,9 +19,9 @@ from featuretex.bake.baseline import bake_baseline
 from featuretex.diagnose import DiagnoseConfig, diagnose
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
-from featuretex.render import render_texture
 from featuretex.scene.loaded import load_scene
-from featuretex.score import score_method
+from featuretex.scoring.heldout import score_method
+from featuretex.scoring.render import render_texture
 
 from test_diagnose import DENT, cameras, plane
 

@@ -455,10 +455,10 @@ def test_details_are_located_on_the_surface_the_held_out_render_shows(pipeline_r
     pixel of a held-out render, the surface point whose texel that render shows there: the classical
     texture at the UV of the point trimesh's proximity query finds (an independent closest-point
     search) matches the rendered pixel."""
-    from featuretex.bake.sampling import sample_texture
     from featuretex.report import closer
     from featuretex.report.context import Page
     from featuretex.report.rundir import read_run_dir
+    from featuretex.texels.sampling import sample_texture
 
     page = Page(read_run_dir(pipeline_run))
     locate = closer.locator(page.scene_views, page.caster)

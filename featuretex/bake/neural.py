@@ -27,15 +27,16 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-from featuretex.bake.baseline import usable_mask, view_samples
-from featuretex.bake.config import BakeConfig, BaselineConfig
-from featuretex.bake.gutter import fill_texture
-from featuretex.bake.sampling import sample_image
+from featuretex.bake.config import BakeConfig
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.loaded import Scene
 from featuretex.scene.manifest import View
 from featuretex.settings import check_settings
+from featuretex.texels.average import TexelAverage
+from featuretex.texels.gutter import fill_texture
+from featuretex.texels.sampling import sample_image
+from featuretex.texels.visibility import usable_mask, view_samples
 
 MAD_TO_SIGMA = 1.4826    # sigma of Gaussian noise = 1.4826 x median absolute deviation (Hampel 1974)
 CAUCHY_C = 2.3849        # Cauchy tuning constant for 95 % efficiency on Gaussian noise (Holland &
@@ -65,11 +66,6 @@ def _check(cfg: BakeConfig) -> None:
     check_settings(cfg, "bake.")   # for callers of the bake itself; the command line checked already
 
 
-def _sampling_config(cfg: BakeConfig) -> BaselineConfig:
-    return BaselineConfig(min_cos=cfg.min_cos, depth_tol_px=cfg.depth_tol_px,
-                          edge_erode_px=cfg.edge_erode_px, gutter=cfg.gutter)
-
-
 def gather_samples(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer,
                    residual_of: Callable[[View], np.ndarray] | None, cfg: BakeConfig,
                    views: Iterable[View] | None = None) -> ResidualSamples:
@@ -79,19 +75,18 @@ def gather_samples(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuff
     gathers only where the texels are seen (values 0). views: default the fitted views.
     """
     views = list(scene.manifest.fitted if views is None else views)
-    scfg = _sampling_config(cfg)
     parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
     for k, view in enumerate(views):
         gbuf = gbuffers[view.name]
-        s = view_samples(texels, view, gbuf, usable_mask(scene, view, gbuf, cfg.edge_erode_px), scfg)
+        s = view_samples(texels, view, gbuf, usable_mask(scene, view, gbuf, cfg.edge_erode_px),
+                         cfg.min_cos, cfg.depth_tol_px)
         if len(s.idx) == 0:
             continue
         if residual_of is None:
             val = np.zeros((len(s.idx), 3), np.float32)
         else:
             val = sample_image(np.asarray(residual_of(view), np.float32), s.xy)
-        w = s.cos.astype(np.float64) * s.px_per_unit.astype(np.float64) ** 2
-        parts.append((s.idx, val, w, np.full(len(s.idx), k, np.int32)))
+        parts.append((s.idx, val, s.weight, np.full(len(s.idx), k, np.int32)))
     if not parts:
         return ResidualSamples(np.zeros(0, np.int64), np.zeros((0, 3), np.float32), np.zeros(0), np.zeros(0, np.int32))
     idx, val, w, vi = (np.concatenate(p) for p in zip(*parts))
@@ -122,9 +117,9 @@ def weighted_median(idx: np.ndarray, value: np.ndarray, weight: np.ndarray, n: i
 
 
 def _weighted_mean(idx: np.ndarray, value: np.ndarray, weight: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
-    wsum = np.bincount(idx, weight, n)
-    acc = np.stack([np.bincount(idx, weight * value[:, c], n) for c in range(value.shape[1])], axis=1)
-    return acc / np.maximum(wsum, 1e-300)[:, None], wsum
+    avg = TexelAverage(n, value.shape[1])
+    avg.add(idx, value, weight)
+    return avg.mean(), avg.wsum
 
 
 def robust_combine(s: ResidualSamples, n: int, cfg: BakeConfig) -> tuple[np.ndarray, np.ndarray]:
@@ -175,44 +170,15 @@ def compose_texture(texels: TexelBuffer, head_lin: np.ndarray, samples: Residual
                       weight=wsum.reshape(T, T).astype(np.float32))
 
 
-def bake_model(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, model,
-               cfg: BakeConfig | None = None) -> BakeResult:
-    """Bake a fitted SceneModel into a (T, T, 3) linear texture, T = texels.size (any size: the head
-    is resampled with the model's own mip filter when T differs from the feature texture's)."""
-    from featuretex.fit.render import render_decoder_residual, render_texel_head
+def bake_model(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, head_lin: np.ndarray,
+               residual_of: Callable[[View], np.ndarray] | None, cfg: BakeConfig | None = None) -> BakeResult:
+    """Bake a fitted model into a (T, T, 3) linear texture, T = texels.size.
 
+    The fit's renderer draws what the bake needs and the caller passes it in: head_lin (T, T, 3)
+    linear, the model's head on every texel of this size; residual_of(view) -> (H, W, 3) linear,
+    what the screen-space decoder adds at a fitted view (None: the model has no screen decoder).
+    """
     cfg = cfg or BakeConfig()
     _check(cfg)
-    head = render_texel_head(model, texels.size)
-    use_res = cfg.residual and getattr(model.decoder, "screen", None) is not None
-
-    def residual_of(view: View) -> np.ndarray:
-        return render_decoder_residual(model, scene, gbuffers[view.name], view)
-
-    samples = gather_samples(scene, gbuffers, texels, residual_of if use_res else None, cfg)
-    return compose_texture(texels, head, samples, cfg)
-
-
-def score_bake(scene: Scene, gbuffers: dict[str, GBuffer], texture_lin: np.ndarray, neural: dict | None = None,
-               image_dir=None, seed: int = 0) -> dict:
-    """Held-out figures of a baked texture, for summary.json.
-
-    texture_lin: (T, T, 3) linear. neural: the `score_method` result of the neural render (for the
-    gap). Returns {"baked": score_method(...) incl. per_view, "bake_gap_db": neural - baked in
-    alignment-tolerant PSNR (None without neural scores), "seams": seam_ratio(...) at held-out views,
-    with the photos' own ratio as the reference level}.
-    """
-    from featuretex.bake.seams import seam_ratio
-    from featuretex.render import render_texture
-    from featuretex.score import score_mask, score_method
-
-    held = list(scene.manifest.heldout)
-    renders = {v.name: render_texture(gbuffers[v.name], scene.mesh, texture_lin) for v in held}
-    baked = score_method(scene, gbuffers, renders, image_dir, "baked")
-    gap = None
-    if neural is not None and neural.get("psnr_tolerant") is not None and baked["psnr_tolerant"] is not None:
-        gap = float(neural["psnr_tolerant"] - baked["psnr_tolerant"])
-    masks = {v.name: score_mask(scene, v, gbuffers[v.name]) for v in held}
-    photos = {v.name: scene.photo(v) for v in held}
-    seams = seam_ratio(scene.mesh, gbuffers, renders, held, masks, seed=seed, photos=photos)
-    return {"baked": baked, "bake_gap_db": gap, "seams": seams}
+    samples = gather_samples(scene, gbuffers, texels, residual_of if cfg.residual else None, cfg)
+    return compose_texture(texels, head_lin, samples, cfg)

@@ -14,9 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
-from featuretex.bake.sampling import sample_image
 from featuretex.errors import input_error
 from featuretex.scene.loaded import Scene
+from featuretex.texels.sampling import sample_image
 
 
 @dataclass

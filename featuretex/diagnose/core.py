@@ -18,7 +18,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from featuretex.bake.sampling import sample_texture
 from featuretex.diagnose import classify as C
 from featuretex.diagnose import payoff as P
 from featuretex.diagnose.alignment import alignment_evidence, field_at, global_shift, parse_corrections
@@ -36,6 +35,7 @@ from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import TexelBuffer, rasterise_uv, texel_uv
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
+from featuretex.texels.sampling import sample_texture
 
 log = logging.getLogger("featuretex")
 

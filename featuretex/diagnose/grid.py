@@ -9,11 +9,11 @@ import warnings
 import numpy as np
 from scipy import ndimage
 
-from featuretex.bake.texel_size import median_pixel_footprint, surface_per_uv, texel_edge
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.loaded import Scene
 from featuretex.scene.mesh import SceneMesh
+from featuretex.texels.size import median_pixel_footprint, surface_per_uv, texel_edge
 
 
 def texel_areas(mesh: SceneMesh, texels: TexelBuffer) -> np.ndarray:

@@ -8,8 +8,6 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import ndimage
 
-from featuretex.bake.baseline import BaselineConfig, usable_mask, view_samples
-from featuretex.bake.sampling import sample_image
 from featuretex.diagnose.alignment import ViewCorrection
 from featuretex.diagnose.config import DiagnoseConfig
 from featuretex.raster.gbuffer import GBuffer
@@ -17,6 +15,8 @@ from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
 from featuretex.scene.manifest import View
+from featuretex.texels.sampling import sample_image
+from featuretex.texels.visibility import usable_mask, view_samples
 
 LUMA = np.array([0.2126, 0.7152, 0.0722], np.float32)  # Rec. ITU-R BT.709 luma weights
 
@@ -55,14 +55,14 @@ def observe(scene: Scene, gbuffers: dict[str, GBuffer], grid: TexelBuffer, cell:
     """Usable samples of every fitted view: visible, seen at an angle with cos >= min_cos, and from
     no farther than max_footprint_ratio x the median pixel footprint. `cell`: working texel edge,
     scene units (sets the photo low-pass)."""
-    bcfg = BaselineConfig(min_cos=cfg.min_cos, depth_tol_px=cfg.depth_tol_px, edge_erode_px=cfg.edge_erode_px)
+    rule = (cfg.min_cos, cfg.depth_tol_px)
     raw = []
     for view in scene.manifest.fitted:
         gbuf = gbuffers[view.name]
         # near a silhouette a sample may mix in background: it counts for coverage, not for colour
-        everything = view_samples(grid, view, gbuf, usable_mask(scene, view, gbuf, 0), bcfg)
+        everything = view_samples(grid, view, gbuf, usable_mask(scene, view, gbuf, 0), *rule)
         inner = usable_mask(scene, view, gbuf, cfg.edge_erode_px) & ~occlusion_edges(gbuf, cfg)
-        s = view_samples(grid, view, gbuf, inner, bcfg)
+        s = view_samples(grid, view, gbuf, inner, *rule)
         raw.append((view, everything, s))
     footprints = [1.0 / s.px_per_unit for _, s, _ in raw if len(s.idx)]
     if not footprints:

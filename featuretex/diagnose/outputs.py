@@ -8,7 +8,6 @@ from pathlib import Path
 import numpy as np
 
 from featuretex.atomic import atomic_path, write_bytes
-from featuretex.bake.gutter import fill_texture
 from featuretex.diagnose.core import Diagnosis
 from featuretex.diagnose.numbered import draw_numbers, legend_lines
 from featuretex.diagnose.palette import paint, with_legend
@@ -16,6 +15,7 @@ from featuretex.diagnose.verdict import length
 from featuretex.export.ply import write_vertex_colour_ply
 from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.loaded import Scene
+from featuretex.texels.gutter import fill_texture
 
 MIN_MAP_PX = 512   # the PNG map is upscaled (nearest) to at least this many pixels per side
 

@@ -38,6 +38,8 @@ from featuretex.diagnose.observe import Observation
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
+from featuretex.scoring.render import render_texture
+from featuretex.texels.visibility import usable_mask
 
 
 @dataclass
@@ -152,13 +154,10 @@ def texture_share(history: dict | list | None) -> float:
 def render_error(scene: Scene, gbuffers: dict[str, GBuffer], texture_lin: np.ndarray) -> tuple[float, float]:
     """(squared error, pixels) of `texture_lin` (T, T, 3) linear rendered at every fitted view through
     its G-buffer against the photo inside G-buffer coverage and photo mask, sRGB-encoded."""
-    from featuretex.render import render_texture
-    from featuretex.score import score_mask
-
     se = px = 0.0
     for view in scene.manifest.fitted:
         gb = gbuffers[view.name]
-        m = score_mask(scene, view, gb)
+        m = usable_mask(scene, view, gb)
         if not m.any():
             continue
         r = linear_to_srgb(render_texture(gb, scene.mesh, texture_lin)[m])

@@ -26,7 +26,7 @@ import numpy as np
 import pygltflib as gl
 
 from featuretex.atomic import write_bytes
-from featuretex.export.png import PNG_SIGNATURE
+from featuretex.png import PNG_SIGNATURE
 from featuretex.scene.mesh import SceneMesh
 
 UNLIT = "KHR_materials_unlit"

@@ -5,8 +5,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from featuretex.bake.config import texture_size
 from featuretex.settings import check_settings, setting
+from featuretex.texels.config import texture_size
 
 MIN_CROP = 16   # px: the SSIM window is 11 wide and the screen decoder pads each side
 
@@ -23,6 +23,7 @@ class FitConfig:
     lr_colour: float = setting(2e-3, ge=0)     # per-view colour affine
     lr_align: float = setting(0.05, ge=0)      # per-view alignment fields (pixels per step)
     rebake_at: int = setting(500, ge=0)        # re-average the colour layer from the registered photos after this step (0 = never; scale with steps)
+    gutter: int = setting(8, ge=0, le=256)     # texels of gutter padding of the re-averaged colour layer; the pipeline sets it from texture.gutter
     # model
     channels: int = setting(8, ge=1, le=64)    # latent feature channels (read by the screen-space decoder)
     latent_scale: int = setting(4, ge=1, le=64)  # latent layer has texture_size / latent_scale texels per side

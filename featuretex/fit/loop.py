@@ -294,7 +294,7 @@ def fit_scene(scene: Scene, gbuffers: dict[str, GBuffer], init_texture_lin: np.n
                 if cfg.rebake_at and state.step == cfg.rebake_at:
                     t = time.perf_counter()
                     texels = rasterise_uv(scene.mesh, model.texture.size)
-                    n = rebake_colour_layer(scene, gbuffers, texels, model, cfg.edge_erode_px)
+                    n = rebake_colour_layer(scene, gbuffers, texels, model, cfg.edge_erode_px, cfg.gutter)
                     opt.state.pop(model.texture.colour, None)   # its moments belong to the old texture
                     timings["rebake_s"] = time.perf_counter() - t
                     log.info("fit: colour layer re-averaged from the registered photos at step %d (%d texels, "

@@ -12,15 +12,14 @@ from __future__ import annotations
 import numpy as np
 import torch
 
-from featuretex.bake.baseline import BaselineConfig, usable_mask, view_samples
-from featuretex.bake.gutter import fill_texture
-from featuretex.bake.sampling import sample_image
 from featuretex.model.scene_model import SceneModel
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.raster.uvspace import TexelBuffer
 from featuretex.scene.loaded import Scene
-
-GUTTER = 8  # texels of padding copied from the island edge (common practice: >= 4 for mipmaps)
+from featuretex.texels.average import TexelAverage
+from featuretex.texels.gutter import fill_texture
+from featuretex.texels.sampling import sample_image
+from featuretex.texels.visibility import usable_mask, view_samples
 
 
 @torch.no_grad()
@@ -31,13 +30,11 @@ def registered_average(scene: Scene, gbuffers: dict[str, GBuffer], texels: Texel
     corr = model.corrections
     assert corr is not None
     T = texels.size
-    acc = np.zeros((T * T, 3), np.float64)
-    wsum = np.zeros(T * T, np.float64)
-    bcfg = BaselineConfig(edge_erode_px=erode_px)
+    avg = TexelAverage(T * T)
     for j, name in enumerate(corr.names):
         view = scene.view(name)
         gbuf = gbuffers[name]
-        s = view_samples(texels, view, gbuf, usable_mask(scene, view, gbuf, erode_px), bcfg)
+        s = view_samples(texels, view, gbuf, usable_mask(scene, view, gbuf, erode_px))
         if len(s.idx) == 0:
             continue
         px = torch.from_numpy(s.xy.astype(np.float32))[None, None]           # (1, 1, N, 2)
@@ -45,20 +42,17 @@ def registered_average(scene: Scene, gbuffers: dict[str, GBuffer], texels: Texel
         colour = sample_image(scene.photo(view), s.xy + d).astype(np.float64)  # photo(x + d(x))
         M, b = corr.colour(torch.tensor([j]))
         colour = (colour - b[0].numpy()) @ np.linalg.inv(M[0].numpy().astype(np.float64)).T
-        w = s.cos.astype(np.float64) * s.px_per_unit.astype(np.float64) ** 2
-        np.add.at(acc, s.idx, colour * w[:, None])
-        np.add.at(wsum, s.idx, w)
-    seen = (wsum > 0).reshape(T, T)
-    avg = (acc / np.maximum(wsum, 1e-30)[:, None]).reshape(T, T, 3).astype(np.float32)
-    return avg, seen
+        avg.add(s.idx, colour, s.weight)
+    return avg.mean().reshape(T, T, 3).astype(np.float32), avg.seen.reshape(T, T)
 
 
 @torch.no_grad()
 def rebake_colour_layer(scene: Scene, gbuffers: dict[str, GBuffer], texels: TexelBuffer, model: SceneModel,
-                        erode_px: int) -> int:
+                        erode_px: int, gutter: int) -> int:
     """Replace the colour layer by the registered average (through the inverse of the texel head,
-    so the head's output is the average); texels no fitted view sees keep their values. Returns the
-    number of texels replaced."""
+    so the head's output is the average); texels no fitted view sees keep their values, and the
+    `gutter` texels around the islands copy their nearest surface texel. Returns the number of
+    texels replaced."""
     avg, seen = registered_average(scene, gbuffers, texels, model, erode_px)
     if not seen.any():
         return 0
@@ -68,6 +62,6 @@ def rebake_colour_layer(scene: Scene, gbuffers: dict[str, GBuffer], texels: Texe
     target = (avg.astype(np.float64) - head.bias.double().numpy()) @ np.linalg.inv(W).T
     keep = ~seen
     target[keep] = cur[keep]                                     # unseen: as they were
-    filled = fill_texture(target.astype(np.float32), np.ones_like(seen), texels.valid, GUTTER)
+    filled = fill_texture(target.astype(np.float32), np.ones_like(seen), texels.valid, gutter)
     model.texture.colour.copy_(torch.from_numpy(filled.reshape(-1, 3)))
     return int(seen.sum())

@@ -6,6 +6,8 @@ the decoder's receptive halo, so results equal one full-frame pass with bounded 
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 import torch
 
@@ -77,6 +79,15 @@ def render_decoder_residual(model: SceneModel, scene: Scene, gbuffer: GBuffer, v
     return residual if residual is not None else np.zeros(gbuffer.shape + (3,), np.float32)
 
 
+def residual_renderer(model: SceneModel, scene: Scene, gbuffers: dict[str, GBuffer]
+                      ) -> Callable[[View], np.ndarray] | None:
+    """view -> its `render_decoder_residual`, what the bake reprojects; None when the model has no
+    screen-space decoder (nothing to reproject)."""
+    if getattr(model.decoder, "screen", None) is None:
+        return None
+    return lambda view: render_decoder_residual(model, scene, gbuffers[view.name], view)
+
+
 @torch.no_grad()
 def render_texel_head(model: SceneModel, size: int | None = None) -> np.ndarray:
     """(T, T, 3) float32 linear: the head applied per texel — the exactly bakeable RGB texture.
@@ -112,5 +123,5 @@ def aligned_photo(model: SceneModel, scene: Scene, view: View) -> np.ndarray:
     return out[0].permute(1, 2, 0).numpy().astype(np.float32)
 
 
-__all__ = ["render_view", "render_texel_head", "render_decoder_residual", "aligned_photo", "render_viewdata",
+__all__ = ["render_view", "render_texel_head", "render_decoder_residual", "residual_renderer", "aligned_photo", "render_viewdata",
            "apply_view_colour", "PHOTO_MARGIN"]

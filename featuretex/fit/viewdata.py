@@ -17,12 +17,12 @@ import numpy as np
 import torch
 from scipy import ndimage
 
-from featuretex.model.lod import face_uv_gradients, footprint_of, pixel_uv_jacobian
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.images import linear_table
 from featuretex.scene.loaded import Scene
 from featuretex.scene.manifest import View
 from featuretex.scene.mesh import SceneMesh
+from featuretex.texels.lod import face_uv_gradients, footprint_of, pixel_uv_jacobian
 
 PHOTO_MARGIN = 16  # px of photo around a crop read for its alignment warp (more when a field moves further)
 GEO_CHANNELS = 12

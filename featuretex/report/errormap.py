@@ -16,6 +16,7 @@ from scipy import ndimage
 from featuretex.diagnose.classify import GEOMETRY, OFF, TEXTURE, UNCOVERED, from_severity, severity
 from featuretex.diagnose.numbered import label_texel
 from featuretex.diagnose.palette import paint
+from featuretex.texels.gutter import fill_texture
 
 KINDS = {GEOMETRY: "geometry", TEXTURE: "texture", UNCOVERED: "uncovered"}   # summary.json class names
 MARK, INK = (255, 230, 60), (16, 16, 16)     # region outlines and number badges
@@ -183,8 +184,6 @@ def badge(draw: ImageDraw.ImageDraw, x: float, y: float, n: int, font: ImageFont
 def surface_texture(f: ErrorFields, gutter: int = 4) -> np.ndarray:
     """(T, T, 3) uint8: the painted map with its islands padded `gutter` texels outwards, so
     filtered lookups at island borders on a 3D model never mix in the white of "no surface"."""
-    from featuretex.bake.gutter import fill_texture
-
     on = f.cls != OFF
     filled = fill_texture(painted(f).astype(np.float32), on, on, gutter)
     return np.clip(np.rint(filled), 0, 255).astype(np.uint8)

@@ -17,6 +17,7 @@ import numpy as np
 
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.mesh import SceneMesh
+from featuretex.texels.sampling import sample_texture
 
 BACKGROUND = (243, 242, 238)     # sRGB bytes behind the model
 # (name, direction from the model towards the camera, the picture's up), glTF frame
@@ -122,8 +123,6 @@ def paint(cast: Cast, texture: np.ndarray, *, nearest: bool, shading: float = 0.
     """(S, S, 3) uint8 still: `texture` (T, T, 3) uint8 sRGB at each pixel's UV (nearest texel or
     bilinear), darkened by `shading` (0 = unlit; 0.3 = up to 30 % where the surface turns away from
     the camera), averaged 2 x 2 over the background colour."""
-    from featuretex.bake.sampling import sample_texture
-
     hit = cast.tri >= 0
     rgb = np.empty(cast.tri.shape + (3,), np.float32)
     rgb[:] = BACKGROUND

@@ -17,6 +17,7 @@ from typing import Sequence
 
 import numpy as np
 
+from featuretex import plugins
 from featuretex.errors import input_error
 from featuretex.scene.manifest import AXES, Manifest, View, invert_rigid
 from featuretex.scene.mesh import SceneMesh
@@ -31,6 +32,7 @@ MAJORITY = 0.5             # evidence against more than this share of the views 
 CLUSTER = 0.01             # camera centres within this share of the mesh size count as one point
 TWO_LEVEL = 0.99           # share of pure black or white pixels that makes an image a mask
 MASK_LIKE_IOU = 0.7        # a black-and-white photo whose white overlaps the mesh this well is a mask
+SILHOUETTE_BACKEND = "embree"  # rasteriser plugin of the coarse silhouettes (exact ray casting, no GPU)
 
 
 @dataclass(frozen=True)
@@ -223,9 +225,7 @@ def check_silhouettes(man: Manifest, mesh: SceneMesh, masks: dict[str, np.ndarra
     Raises when more than MAJORITY of the views show the same kind of evidence; returns one warning
     line per view otherwise.
     """
-    from featuretex.raster.embree import EmbreeRasteriser
-
-    caster = EmbreeRasteriser(mesh)
+    caster = plugins.load("rasterisers", SILHOUETTE_BACKEND)(mesh)
     light = light or {}
     findings = [silhouette_finding(v, caster.render(coarse_view(v))["tri"] >= 0, masks.get(v.name), man.unit,
                                    light.get(v.name)) for v in man.views]

@@ -11,7 +11,7 @@ import trimesh
 
 from featuretex.atomic import write_bytes
 from featuretex.export.base import declared_outputs, load_exporters
-from featuretex.export.png import write_texture_png
+from featuretex.png import write_texture_png
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.mesh import SceneMesh
 

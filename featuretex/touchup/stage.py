@@ -21,6 +21,7 @@ import math
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -30,17 +31,22 @@ from featuretex.diagnose.core import diagnose
 from featuretex.diagnose.grid import texel_areas
 from featuretex.fit.loop import fit_scene
 from featuretex.fit.outputs import FitResult
+from featuretex.fit.render import render_texel_head, residual_renderer
 from featuretex.raster.stage import build_gbuffers
 from featuretex.raster.uvspace import rasterise_uv
-from featuretex.run import RunContext
 from featuretex.scene.loaded import Scene
 from featuretex.scene.mesh import SceneMesh, smooth_normals
+from featuretex.scoring.heldout import score_method
+from featuretex.scoring.render import render_texture
 from featuretex.stages import StageBook, key_of
 from featuretex.touchup import evidence as E
 from featuretex.touchup.config import TouchupConfig
 from featuretex.touchup.mesh import moved, welded
 from featuretex.touchup.outputs import model_files, write_model, write_offsets_ply
 from featuretex.touchup.solve import solve_offsets
+
+if TYPE_CHECKING:        # the run context is built by the pipeline, a later layer
+    from featuretex.run import RunContext
 
 log = logging.getLogger("featuretex")
 DIR = "touchup"
@@ -130,7 +136,7 @@ def run_rounds(scene: Scene, cfg, out: Path, book: StageBook, key: str, size: in
     half = start.summary["figures"]["sweep_half_range"]
     rounds = [start]
     best = start
-    fit_cfg = dataclasses.replace(cfg.fit, steps=tcfg.fit_steps, rebake_at=tcfg.rebake_at)
+    fit_cfg = dataclasses.replace(cfg.fit, steps=tcfg.fit_steps, rebake_at=tcfg.rebake_at, gutter=cfg.texture.gutter)
     for k in range(1, tcfg.rounds + 1):
         folder = out / DIR / f"round{k}"
         rkey = key_of(key, k, tcfg)
@@ -171,7 +177,8 @@ def _refit(st: RoundState, prev: RoundState, scene: Scene, fit_cfg, cfg, folder:
     fit = fit_scene(moved_scene, gbuffers, prev.texture_lin, None, fit_cfg, folder, seed=cfg.seed, quiet=cfg.quiet,
                     config_hash=rkey, warm=prev.fit.model if prev.fit is not None else None)
     texels = rasterise_uv(st.mesh, size)
-    st.texture_lin = bake_model(moved_scene, gbuffers, texels, fit.model,
+    st.texture_lin = bake_model(moved_scene, gbuffers, texels, render_texel_head(fit.model, size),
+                                residual_renderer(fit.model, moved_scene, gbuffers),
                                 dataclasses.replace(cfg.bake, gutter=cfg.texture.gutter)).texture_lin
     dg = diagnose(moved_scene, gbuffers, texels, st.texture_lin, cfg.diagnose, corrections=fit.corrections,
                   history=fit.history)
@@ -202,9 +209,6 @@ def stage_touchup(ctx: RunContext, key: str, fit: FitResult, baked_tex: np.ndarr
     """Run the touch-up after the run's own diagnosis; write `touchup/` (frame: the run's (4, 4)
     scene -> glTF matrix) and score it on the held-out views. Returns {"heldout": scores like the
     other methods' (with per_view), "report": figures, "seconds": the touch-up's own time}."""
-    from featuretex.score import score_method
-    from featuretex.render import render_texture
-
     scene, cfg, out, book, gbuffers = ctx.scene, ctx.cfg, ctx.out, ctx.book, ctx.gbuffers
     assert ctx.texels is not None
     size = ctx.texels.size

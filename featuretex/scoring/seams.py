@@ -18,11 +18,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from featuretex.model.lod import uv_footprint
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.manifest import View
 from featuretex.scene.mesh import SceneMesh
+from featuretex.texels.lod import uv_footprint
 
 JUMP_FACTOR = 3.0         # |uv(p) - uv(q)| above this many pixel footprints in uv: the UV jumps
 MAX_GAP_PX = 4.0          # neighbours farther apart in 3D than this many pixel footprints: not one surface

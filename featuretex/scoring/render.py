@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from featuretex.bake.sampling import sample_texture
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.mesh import SceneMesh
+from featuretex.texels.sampling import sample_texture
 
 
 def render_texture(gbuf: GBuffer, mesh: SceneMesh, texture: np.ndarray) -> np.ndarray:
