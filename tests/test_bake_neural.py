@@ -13,7 +13,6 @@ import torch
 from scipy import ndimage
 from skimage.transform import downscale_local_mean
 
-import featuretex.model  # noqa: F401  (registers the built-in decoders)
 from featuretex.bake.neural import (BakeConfig, ResidualSamples, bake_model, compose_texture, gather_samples,
                                     robust_combine, weighted_median)
 from featuretex.errors import InputError

@@ -1,7 +1,2 @@
-"""The learned model: feature texture, decoders (plugins), per-view corrections."""
-
-from featuretex import plugins
-
-# built-in decoders; the same names are declared as entry points (group featuretex.decoders)
-plugins.register_builtin("decoders", "texel", "featuretex.model.decoders:TexelDecoder")
-plugins.register_builtin("decoders", "texel-screen", "featuretex.model.decoders:TexelScreenDecoder")
+"""The learned model: feature texture, decoders (plugins of kind "decoders", the built-ins declared
+as entry points in pyproject.toml), per-view corrections."""
