@@ -20,6 +20,8 @@ like any other photo, so every stage reads every photo the same way.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from functools import lru_cache
 from pathlib import Path
 
@@ -210,16 +212,23 @@ def header_size(path: Path) -> tuple[int, int] | None:
     return (h, w) if orient in SWAPS_AXES else (w, h)
 
 
+@contextmanager
+def _decoded(path: Path, manifest_file: str, view: str, fld: str) -> Iterator[tuple[Image.Image, bool, int]]:
+    """The open image, decoded once in full (damage shows), whether it needs the wide decoder, and
+    its EXIF orientation; closed on leaving."""
+    im, wide = _open(path, manifest_file, view, fld)
+    with im:
+        _load(im, path, manifest_file, view, fld)
+        yield im, wide, _orientation(im)
+
+
 def verify_image(path: Path, manifest_file: str, view: str, fld: str) -> tuple[int, int]:
     """Decode the whole file once (damage shows), keep no pixels; -> upright (width, height).
 
     A RAW file is unpacked, not developed (demosaicing is the slow part and cannot fail on its own)."""
     if is_raw(path):
         return _raw_size(path, manifest_file, view, fld)
-    im, _ = _open(path, manifest_file, view, fld)
-    with im:
-        _load(im, path, manifest_file, view, fld)
-        orient = _orientation(im)
+    with _decoded(path, manifest_file, view, fld) as (im, _, orient):
         w, h = im.size
     return (h, w) if orient in SWAPS_AXES else (w, h)
 
@@ -231,10 +240,7 @@ def decode_levels(path: Path, manifest_file: str, view: str, fld: str) -> np.nda
     """
     if is_raw(path):
         return _raw_levels(path, manifest_file, view, fld)
-    im, wide = _open(path, manifest_file, view, fld)
-    with im:
-        _load(im, path, manifest_file, view, fld)
-        orient = _orientation(im)
+    with _decoded(path, manifest_file, view, fld) as (im, wide, orient):
         if wide:
             return np.ascontiguousarray(_ORIENT[orient](_decode_wide(path, manifest_file, view, fld)))
         up = ImageOps.exif_transpose(im)
