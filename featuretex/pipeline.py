@@ -38,8 +38,7 @@ from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene, load_scene
 from featuretex.scene.locate import resolve_scene_path
 from featuretex.scene.manifest import view_file_stem
-from featuretex.scoring.heldout import score_bake, score_method
-from featuretex.scoring.render import render_texture
+from featuretex.scoring.heldout import score_methods
 from featuretex.stages import StageBook, key_of
 from featuretex.threads import job_threads, use_threads
 from featuretex.touchup.evidence import grid_fields
@@ -192,7 +191,9 @@ def stage_score(ctx: RunContext, key: str, base_tex: np.ndarray, model, baked_te
     record = ctx.stage_file("score.json")
 
     def compute() -> dict:
-        heldout = score_all(ctx.scene, ctx.gbuffers, base_tex, model, baked_tex, ctx.out, ctx.cfg.seed)
+        heldout = score_methods(ctx.scene, ctx.gbuffers, base_tex,
+                                lambda v: render_view(model, ctx.scene, ctx.gbuffers[v.name], v),
+                                baked_tex, ctx.out / HELDOUT_DIR, ctx.cfg.seed)
         write_json(record, heldout)
         return heldout
 
@@ -274,18 +275,6 @@ def run_pipeline(cfg: FeaturetexConfig, out: Path) -> dict:
         summary["timings_s"]["report"] = round(time.perf_counter() - t0, 3)
         write_json(out / "summary.json", summary)
     return summary
-def score_all(scene: Scene, gbuffers, base_tex: np.ndarray, model, baked_tex: np.ndarray, out: Path,
-              seed: int) -> dict:
-    """Held-out figures of the three methods; renders go to `out/heldout/` for the report."""
-    image_dir = out / HELDOUT_DIR
-    held = scene.manifest.heldout
-    base = score_method(scene, gbuffers, {v.name: render_texture(gbuffers[v.name], scene.mesh, base_tex)
-                                          for v in held}, image_dir, "baseline")
-    neural = score_method(scene, gbuffers, {v.name: render_view(model, scene, gbuffers[v.name], v)
-                                            for v in held}, image_dir, "neural")
-    baked = score_bake(scene, gbuffers, baked_tex, neural, image_dir, seed)
-    return {"baseline": base, "neural": neural, "baked": baked["baked"], "bake_gap_db": baked["bake_gap_db"],
-            "seams": baked["seams"]}
 
 
 def _strip(d: dict) -> dict:

@@ -123,5 +123,5 @@ def aligned_photo(model: SceneModel, scene: Scene, view: View) -> np.ndarray:
     return out[0].permute(1, 2, 0).numpy().astype(np.float32)
 
 
-__all__ = ["render_view", "render_texel_head", "render_decoder_residual", "residual_renderer", "aligned_photo", "render_viewdata",
-           "apply_view_colour", "PHOTO_MARGIN"]
+__all__ = ["render_view", "render_texel_head", "render_decoder_residual", "residual_renderer", "aligned_photo",
+           "render_viewdata", "apply_view_colour", "PHOTO_MARGIN"]

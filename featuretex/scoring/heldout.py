@@ -3,6 +3,7 @@ baked texture: those scores, the gap to the neural render and how visible its UV
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -11,7 +12,7 @@ from featuretex.png import write_texture_png
 from featuretex.raster.gbuffer import GBuffer
 from featuretex.scene.colour import linear_to_srgb
 from featuretex.scene.loaded import Scene
-from featuretex.scene.manifest import view_file_stem
+from featuretex.scene.manifest import View, view_file_stem
 from featuretex.scoring import metrics
 from featuretex.scoring.render import render_texture
 from featuretex.scoring.seams import seam_ratio
@@ -67,3 +68,20 @@ def score_bake(scene: Scene, gbuffers: dict[str, GBuffer], texture_lin: np.ndarr
     photos = {v.name: scene.photo(v) for v in held}
     seams = seam_ratio(scene.mesh, gbuffers, renders, held, masks, seed=seed, photos=photos)
     return {"baked": baked, "bake_gap_db": gap, "seams": seams}
+
+
+def score_methods(scene: Scene, gbuffers: dict[str, GBuffer], baseline_lin: np.ndarray,
+                  neural_render: Callable[[View], np.ndarray], baked_lin: np.ndarray, image_dir: Path | None,
+                  seed: int = 0) -> dict:
+    """Held-out figures of the three methods, the score stage's entry point: the classical bake
+    `baseline_lin` and the baked texture `baked_lin` ((T, T, 3) linear) rendered here, the fitted
+    model through `neural_render` (view -> (H, W, 3) linear, the fit's renderer). With image_dir,
+    the renders go there for the report. Returns {"baseline", "neural", "baked": score_method(...),
+    "bake_gap_db", "seams": as score_bake}."""
+    held = scene.manifest.heldout
+    base = score_method(scene, gbuffers, {v.name: render_texture(gbuffers[v.name], scene.mesh, baseline_lin)
+                                          for v in held}, image_dir, "baseline")
+    neural = score_method(scene, gbuffers, {v.name: neural_render(v) for v in held}, image_dir, "neural")
+    baked = score_bake(scene, gbuffers, baked_lin, neural, image_dir, seed)
+    return {"baseline": base, "neural": neural, "baked": baked["baked"], "bake_gap_db": baked["bake_gap_db"],
+            "seams": baked["seams"]}
