@@ -18,7 +18,6 @@ from typing import Callable
 import numpy as np
 import torch
 
-import featuretex.model  # noqa: F401  (registers the built-in decoders)
 from featuretex.errors import input_error
 from featuretex.fit import checkpoint as ckpt
 from featuretex.fit.config import FitConfig, check_fit_config
