@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from featuretex.config import FeaturetexConfig
-from featuretex.export.png import write_texture_png
+from featuretex.png import write_texture_png
 from featuretex.pipeline import stage_export
 from featuretex.run import RunContext
 from featuretex.scene.loaded import load_scene
