@@ -70,9 +70,7 @@ class Page:
         return self._attempt("error", self._error)
 
     def _error(self) -> ErrorMap:
-        with np.load(self.run.path / "error_map.npz") as z:
-            size = int(np.asarray(z["geometry"]).shape[0])
-        fields = errormap.load_fields(self.run.path / "error_map.npz", k=errormap.reduction(size))
+        fields = errormap.load_fields(self.run.path / "error_map.npz")
         regions = errormap.regions_of(self.run.summary.get("regions") or [], fields.region)
         return ErrorMap(fields, str(self.run.summary.get("unit", "")), regions, errormap.surface_texture(fields))
 

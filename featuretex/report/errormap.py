@@ -80,10 +80,11 @@ def _block_max(a: np.ndarray, k: int) -> np.ndarray:
     return a if k == 1 else a.reshape(a.shape[0] // k, k, a.shape[1] // k, k).max(axis=(1, 3))
 
 
-def load_fields(npz, k: int = 1) -> ErrorFields:
-    """Read error_map.npz, pooled over k x k texel blocks (classes: the most severe; regions: the
-    highest number, so a small region keeps its texels)."""
+def load_fields(npz, most: int = 512) -> ErrorFields:
+    """Read error_map.npz, pooled over k x k texel blocks (k = reduction(size, most); classes: the
+    most severe; regions: the highest number, so a small region keeps its texels)."""
     with np.load(npz) as z:
+        k = reduction(int(np.asarray(z["geometry"]).shape[0]), most) if "geometry" in z.files else 1
         missing = [f for f in ("cls", "geometry", "texture", "region") if f not in z.files]
         if missing:
             raise KeyError(f"error_map.npz lacks {', '.join(missing)} (written by an older featuretex: run the "
